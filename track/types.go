@@ -1,0 +1,100 @@
+package track
+
+// Observation is one tracked position of a track in one frame, in pixels.
+// Convention (as in the OpenCV library): origin at the top-left pixel's
+// centre, x to the right, y down, pixel centres at integer coordinates.
+type Observation struct {
+	Frame int     // frame index, 0.. in the order of the sorted input
+	X, Y  float64 // position in pixels
+	// Quality is an optional per-observation score in [0,1] (for example
+	// the normalised cross-correlation against the track's reference
+	// appearance); 0 when unknown.
+	Quality float64
+}
+
+// Track is a 2D feature followed through consecutive frames. Observations
+// are sorted by frame and frames are unique within a track.
+type Track struct {
+	ID  int           // stable id, unique within a Set
+	Obs []Observation // sorted by Frame
+	RGB [3]uint8      // colour sampled at the first observation
+}
+
+// First returns the first frame the track is seen in, or -1 if empty.
+func (t *Track) First() int {
+	if len(t.Obs) == 0 {
+		return -1
+	}
+	return t.Obs[0].Frame
+}
+
+// Last returns the last frame the track is seen in, or -1 if empty.
+func (t *Track) Last() int {
+	if len(t.Obs) == 0 {
+		return -1
+	}
+	return t.Obs[len(t.Obs)-1].Frame
+}
+
+// At returns the observation in frame f, if any (binary search).
+func (t *Track) At(f int) (Observation, bool) {
+	lo, hi := 0, len(t.Obs)
+	for lo < hi {
+		m := (lo + hi) / 2
+		if t.Obs[m].Frame < f {
+			lo = m + 1
+		} else {
+			hi = m
+		}
+	}
+	if lo < len(t.Obs) && t.Obs[lo].Frame == f {
+		return t.Obs[lo], true
+	}
+	return Observation{}, false
+}
+
+// Set is the result of tracking a sequence: the tracks, the frames they
+// refer to and the tracker's diagnostics.
+type Set struct {
+	Frames []string // frame names (file names, or "frame-000123" for video)
+	Width  int      // image width in pixels
+	Height int      // image height in pixels
+	Tracks []Track
+	Stats  Stats
+}
+
+// Drop reasons for observations and tracks. The strings are stable: they
+// are written into reports and JSON.
+const (
+	DropLeftImage   = "left-image"     // point left the image or came within half a window of the border
+	DropNotFound    = "not-found"      // LK did not converge
+	DropLowEigen    = "low-eigenvalue" // the window lost its texture (minimum eigenvalue check)
+	DropForwardBack = "forward-backward"
+	DropAppearance  = "appearance-drift"
+	DropOutlier     = "outlier"
+	DropStatic      = "static-background"
+	DropIncomplete  = "incomplete" // not seen in every frame (complete-track models only)
+	DropTooShort    = "too-short"  // fewer observations than the minimum track length
+)
+
+// Stats counts what the tracker did. Dropped maps a Drop* reason to the
+// number of tracks ended for that reason.
+type Stats struct {
+	Detected int            // corners detected (all detection rounds)
+	Ended    map[string]int // tracks ended, by reason
+	// Clamped lists any option the tracker had to change to run (for
+	// example pyramid levels reduced on a small image), in plain words.
+	Clamped []string
+}
+
+// CompleteSubset returns the tracks seen in every frame of [0, nFrames).
+func (s *Set) CompleteSubset() []Track {
+	n := len(s.Frames)
+	var out []Track
+	for _, t := range s.Tracks {
+		if len(t.Obs) == n && t.First() == 0 && t.Last() == n-1 {
+			out = append(out, t)
+		}
+	}
+	return out
+}
