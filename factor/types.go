@@ -125,7 +125,20 @@ type Diagnostics struct {
 	// MetricFallback is true when L = QQᵀ was not positive definite and
 	// the nearest positive-definite matrix was used.
 	MetricFallback bool
-	Warnings       []Warning
+	// MetricCondition is the condition number of the linear system of
+	// metric constraints (large: the upgrade is poorly determined).
+	MetricCondition float64
+	// AffineRMS is the RMS residual of the rank-3 affine fit (the SVD
+	// truncation), px; the model's RMS is never below it for complete data.
+	AffineRMS float64
+	// InitialRMS is the model's RMS right after the metric upgrade, before
+	// refinement; Iterations counts the refinement iterations.
+	InitialRMS float64
+	Iterations int
+	// RotationSpreadDeg is the largest angle between camera 0's viewing
+	// direction and any other camera's, degrees.
+	RotationSpreadDeg float64
+	Warnings          []Warning
 }
 
 // Reconstruction is the result of a factorization: cameras, points and the
