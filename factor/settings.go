@@ -1,0 +1,5 @@
+package factor
+
+// WithDefaults returns the options with every zero field replaced by its
+// documented default: the settings a run actually used.
+func (o Options) WithDefaults() Options { return o.withDefaults() }
