@@ -109,7 +109,7 @@ func printSummary(w io.Writer, res *pipeline.Result, out string) {
 	fmt.Fprintf(w, "rotation    views span %.1f°; rank gap σ3/σ4 = %.3g\n", d.RotationSpreadDeg, d.RankGap)
 	verdict := "good"
 	for _, wn := range d.Warnings {
-		if wn.Code != factor.WarnMirror {
+		if !factor.Informational(wn.Code) {
 			verdict = "usable with warnings"
 		}
 	}

@@ -65,22 +65,22 @@ type trackFlags struct {
 func (f *trackFlags) flags() []cli.Flag {
 	d := track.Options{}.WithDefaults()
 	return []cli.Flag{
-		&cli.IntFlag{Name: "start", Usage: "first frame index to use (0-based, in sorted order)", Value: 0, Destination: &f.start},
-		&cli.IntFlag{Name: "end", Usage: "stop before this frame index (0 = to the last frame)", Value: 0, Destination: &f.end},
-		&cli.IntFlag{Name: "step", Usage: "use every N-th frame", Value: 1, Destination: &f.step},
-		&cli.IntFlag{Name: "corners", Usage: "most corners to detect per detection round", Value: d.Detect.MaxCorners, Destination: &f.corners},
-		&cli.Float64Flag{Name: "quality", Usage: "corner quality: fraction of the strongest corner's score below which corners are ignored", Value: d.Detect.Quality, Destination: &f.quality},
-		&cli.Float64Flag{Name: "min-distance", Usage: "smallest distance between corners, px", Value: d.Detect.MinDistance, Destination: &f.minDistance},
-		&cli.IntFlag{Name: "window", Usage: "Lucas–Kanade window side, px (odd)", Value: d.Window, Destination: &f.window},
-		&cli.IntFlag{Name: "levels", Usage: "pyramid levels above full resolution", Value: d.Levels, Destination: &f.levels},
-		&cli.Float64Flag{Name: "fb-threshold", Usage: "forward–backward check: largest round-trip error, px (negative turns it off)", Value: d.FBThreshold, Destination: &f.fb},
-		&cli.Float64Flag{Name: "min-eigen", Usage: "end a track when its window's smaller gradient eigenvalue per pixel falls below this", Value: d.MinEigen, Destination: &f.minEigen},
-		&cli.IntFlag{Name: "redetect-every", Usage: "detect new corners in empty areas every N frames (negative: only when the count falls)", Value: d.RedetectEvery, Destination: &f.redetect},
-		&cli.IntFlag{Name: "min-length", Usage: "drop tracks with fewer observations", Value: d.MinLength, Destination: &f.minLength},
-		&cli.BoolFlag{Name: "no-refine", Usage: "skip the drift-free refinement of positions against each track's first appearance", Destination: &f.noRefine},
-		&cli.BoolFlag{Name: "no-reject", Usage: "keep static-background and outlier tracks", Destination: &f.noReject},
-		&cli.StringFlag{Name: "mask", Usage: "image of the frame size: corners are detected only where it is bright", Destination: &f.mask},
-		&cli.StringFlag{Name: "roi", Usage: "detect corners only inside the rectangle X,Y,W,H (px)", Destination: &f.roi},
+		&cli.IntFlag{Name: "start", Category: "frames", Usage: "first frame index to use (0-based, in sorted order)", Value: 0, Destination: &f.start},
+		&cli.IntFlag{Name: "end", Category: "frames", Usage: "stop before this frame index (0 = to the last frame)", Value: 0, Destination: &f.end},
+		&cli.IntFlag{Name: "step", Category: "frames", Usage: "use every N-th frame", Value: 1, Destination: &f.step},
+		&cli.IntFlag{Name: "corners", Category: "tracking", Usage: "most corners to detect per detection round", Value: d.Detect.MaxCorners, Destination: &f.corners},
+		&cli.Float64Flag{Name: "quality", Category: "tracking", Usage: "corner quality: fraction of the strongest corner's score below which corners are ignored", Value: d.Detect.Quality, Destination: &f.quality},
+		&cli.Float64Flag{Name: "min-distance", Category: "tracking", Usage: "smallest distance between corners, px", Value: d.Detect.MinDistance, Destination: &f.minDistance},
+		&cli.IntFlag{Name: "window", Category: "tracking", Usage: "Lucas–Kanade window side, px (odd)", Value: d.Window, Destination: &f.window},
+		&cli.IntFlag{Name: "levels", Category: "tracking", Usage: "pyramid levels above full resolution", Value: d.Levels, Destination: &f.levels},
+		&cli.Float64Flag{Name: "fb-threshold", Category: "tracking", Usage: "forward–backward check: largest round-trip error, px (negative turns it off)", Value: d.FBThreshold, Destination: &f.fb},
+		&cli.Float64Flag{Name: "min-eigen", Category: "tracking", Usage: "end a track when its window's smaller gradient eigenvalue per pixel falls below this", Value: d.MinEigen, Destination: &f.minEigen},
+		&cli.IntFlag{Name: "redetect-every", Category: "tracking", Usage: "detect new corners in empty areas every N frames (negative: only when the count falls)", Value: d.RedetectEvery, Destination: &f.redetect},
+		&cli.IntFlag{Name: "min-length", Category: "tracking", Usage: "drop tracks with fewer observations", Value: d.MinLength, Destination: &f.minLength},
+		&cli.BoolFlag{Name: "no-refine", Category: "tracking", Usage: "skip the drift-free refinement of positions against each track's first appearance", Destination: &f.noRefine},
+		&cli.BoolFlag{Name: "no-reject", Category: "tracking", Usage: "keep static-background and outlier tracks", Destination: &f.noReject},
+		&cli.StringFlag{Name: "mask", Category: "tracking", Usage: "image of the frame size: corners are detected only where it is bright", Destination: &f.mask},
+		&cli.StringFlag{Name: "roi", Category: "tracking", Usage: "detect corners only inside the rectangle X,Y,W,H (px)", Destination: &f.roi},
 	}
 }
 
@@ -142,9 +142,9 @@ type factorFlags struct {
 func (f *factorFlags) flags() []cli.Flag {
 	d := factor.Options{}.WithDefaults()
 	return []cli.Flag{
-		&cli.StringFlag{Name: "model", Usage: "camera model: " + strings.Join(modelNames(), ", "), Value: string(d.Model), Destination: &f.model},
-		&cli.Float64Flag{Name: "noise-sigma", Usage: "expected tracking noise per coordinate, px (0 = estimate from the data)", Value: 0, Destination: &f.noiseSigma},
-		&cli.Float64Flag{Name: "min-rotation", Usage: "smallest spread of viewing directions that constrains depth, degrees", Value: d.MinRotationDeg, Destination: &f.minRotation},
+		&cli.StringFlag{Name: "model", Category: "reconstruction", Usage: "camera model: " + strings.Join(modelNames(), ", "), Value: string(d.Model), Destination: &f.model},
+		&cli.Float64Flag{Name: "noise-sigma", Category: "reconstruction", Usage: "expected tracking noise per coordinate, px (0 = estimate from the data)", Value: 0, Destination: &f.noiseSigma},
+		&cli.Float64Flag{Name: "min-rotation", Category: "reconstruction", Usage: "smallest spread of viewing directions that constrains depth, degrees", Value: d.MinRotationDeg, Destination: &f.minRotation},
 	}
 }
 
@@ -178,9 +178,9 @@ type outFlags struct {
 
 func (f *outFlags) flags() []cli.Flag {
 	return []cli.Flag{
-		&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "output folder (created if missing)", Destination: &f.dir},
-		&cli.BoolFlag{Name: "force", Usage: "replace results already in the output folder (other files there are left alone)", Destination: &f.force},
-		&cli.BoolFlag{Name: "ply-ascii", Usage: "write PLY files as ASCII instead of binary little-endian", Destination: &f.plyASCII},
+		&cli.StringFlag{Name: "out", Category: "output", Aliases: []string{"o"}, Usage: "output folder (created if missing)", Destination: &f.dir},
+		&cli.BoolFlag{Name: "force", Category: "output", Usage: "replace results already in the output folder (other files there are left alone)", Destination: &f.force},
+		&cli.BoolFlag{Name: "ply-ascii", Category: "output", Usage: "write PLY files as ASCII instead of binary little-endian", Destination: &f.plyASCII},
 	}
 }
 

@@ -133,7 +133,7 @@ func rejectFlagsAfterArgs(c *cli.Context, want int) error {
 	args := c.Args().Slice()
 	for _, a := range args {
 		if strings.HasPrefix(a, "-") && a != "-" {
-			return usagef("%s: flag %q after the arguments; put flags before them, e.g. trackfactor %s %s FRAMES", c.Command.Name, a, c.Command.Name, a)
+			return usagef("%s: flag %q comes after the arguments, where it would be ignored; put every flag before them: trackfactor %s [flags] %s", c.Command.Name, a, c.Command.Name, c.Command.ArgsUsage)
 		}
 	}
 	if len(args) != want {

@@ -129,8 +129,8 @@ func TestBadInput(t *testing.T) {
 func TestUsageErrors(t *testing.T) {
 	dir := t.TempDir()
 	cases := [][]string{
-		{"run", dir},                           // no -o
-		{"run", "-o", dir, dir, "--force"},     // flag after the argument
+		{"run", dir},                       // no -o
+		{"run", "-o", dir, dir, "--force"}, // flag after the argument
 		{"run", "--model", "fisheye", "-o", filepath.Join(dir, "o"), dir},
 		{"run", "--no-such-flag", dir},
 		{"run", "--step", "0", "-o", filepath.Join(dir, "o"), dir},
