@@ -65,28 +65,54 @@ type TrackRejection struct {
 // judged by its own residual only after the fit, so this is a remedy for
 // a few bad tracks, not for a majority.
 func FactorizeRejecting(ctx context.Context, m *Measurements, opts Options, ro RejectOptions) (*Reconstruction, TrackRejection, error) {
+	return RejectTracks(ctx, m, ro, func(ctx context.Context, m *Measurements) (*Reconstruction, error) {
+		return Factorize(ctx, m, opts)
+	})
+}
+
+// FitFunc is a factorization of measurements, for RejectTracks.
+type FitFunc func(ctx context.Context, m *Measurements) (*Reconstruction, error)
+
+// RejectTracks runs fit, rejects the points whose RMS residual is an
+// outlier (see FactorizeRejecting) and refits, for any factorization —
+// complete or incomplete data.
+func RejectTracks(ctx context.Context, m *Measurements, ro RejectOptions, fit FitFunc) (*Reconstruction, TrackRejection, error) {
 	ro = ro.withDefaults()
 	var rep TrackRejection
-	rec, err := Factorize(ctx, m, opts)
+	rec, err := fit(ctx, m)
 	if err != nil || ro.Off {
 		return rec, rep, err
 	}
 	_, np0 := m.Dims()
 	cur := m
 	for round := 0; round < ro.Rounds; round++ {
-		rms := make([]float64, len(rec.Points))
-		for j, p := range rec.Points {
-			rms[j] = p.RMS
+		// Judge every point by its residual scaled to what noise alone
+		// would leave: a point seen in v views has 2v coordinates and 3
+		// parameters, so E[RMS²] = σ²(1 − 3/(2v)) (Hartley & Zisserman,
+		// the ML residual result, applied per point with cameras fixed).
+		byID := make(map[int]float64, len(rec.Points))
+		var norm []float64
+		for _, p := range rec.Points {
+			v := math.Max(float64(p.Views), 2)
+			r := p.RMS / math.Sqrt(1-3/(2*v))
+			byID[p.Track] = r
+			norm = append(norm, r)
 		}
-		thr := robustThreshold(rms, ro.K)
-		thr = math.Max(thr, ro.FloorPx)
+		if len(norm) < MinPoints {
+			break
+		}
+		thr := math.Max(robustThreshold(norm, ro.K), ro.FloorPx)
+		_, np := cur.Dims()
 		var keep []int
-		for j, r := range rms {
-			if r <= thr {
+		for j := 0; j < np; j++ {
+			id := j
+			if cur.Tracks != nil {
+				id = cur.Tracks[j]
+			}
+			if r, ok := byID[id]; !ok || r <= thr {
 				keep = append(keep, j)
 			}
 		}
-		_, np := cur.Dims()
 		if len(keep) == np {
 			break
 		}
@@ -95,7 +121,7 @@ func FactorizeRejecting(ctx context.Context, m *Measurements, opts Options, ro R
 		}
 		rep.Thresholds = append(rep.Thresholds, thr)
 		next := selectColumns(cur, keep)
-		rec2, err := Factorize(ctx, next, opts)
+		rec2, err := fit(ctx, next)
 		if err != nil {
 			// Keep the last good fit rather than fail after rejection.
 			break

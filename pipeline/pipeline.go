@@ -35,6 +35,9 @@ type Config struct {
 	Track  track.Options
 	Factor factor.Options
 	Robust factor.RejectOptions
+	// Missing configures the missing-data solver, used when tracks are
+	// incomplete and the model allows it.
+	Missing factor.MissingOptions
 	// MaskFile is an image of the frame size; corners are detected only
 	// where it is bright. ROI, when its width and height are not zero, is
 	// a rectangle X, Y, W, H (px) outside which no corners are detected.
@@ -61,6 +64,10 @@ type InputError struct{ Err error }
 func (e *InputError) Error() string { return e.Err.Error() }
 func (e *InputError) Unwrap() error { return e.Err }
 
+func errTooFewTracks(set *track.Set) error {
+	return fmt.Errorf("pipeline: fewer than %d usable tracks are seen together in %d or more frames (%d tracks in %d frames); track more corners (--corners), lower --quality, or use frames closer together", factor.MinPoints, factor.MinFrames, len(set.Tracks), len(set.Frames))
+}
+
 // Result is what a run produced, with the diagnostics of every stage.
 type Result struct {
 	Set    *track.Set
@@ -68,9 +75,12 @@ type Result struct {
 	Rec    *factor.Reconstruction
 	// Rejected lists the tracks left out because their residual stood out.
 	Rejected []int
-	Doc      *export.Document
-	Files    []string           // files written, relative to Config.Out
-	Timing   map[string]float64 // seconds by stage
+	// Missing is the missing-data solver's report, nil when the complete
+	// block was used.
+	Missing *factor.MissingReport
+	Doc     *export.Document
+	Files   []string           // files written, relative to Config.Out
+	Timing  map[string]float64 // seconds by stage
 }
 
 // Run tracks the input, reconstructs and writes the results.
@@ -228,9 +238,21 @@ func classify(err error) error {
 func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, error) {
 	res := &Result{Set: set, Timing: map[string]float64{}}
 	t0 := time.Now()
+	if cfg.Factor.ImageWidth == 0 && cfg.Factor.ImageHeight == 0 {
+		cfg.Factor.ImageWidth, cfg.Factor.ImageHeight = set.Width, set.Height
+	}
 	w, ok := LargestCompleteWindow(set, factor.MinFrames, factor.MinPoints)
+	model := cfg.Factor.WithDefaults().Model
+	if useIncomplete(set, w, ok, model) {
+		if err := reconstructIncomplete(ctx, set, cfg, res); err != nil {
+			return nil, err
+		}
+		res.Timing["factor"] = time.Since(t0).Seconds()
+		res.Doc = buildDocument(res, cfg)
+		return res, nil
+	}
 	if !ok {
-		return nil, &InputError{fmt.Errorf("pipeline: fewer than %d tracks are seen together in %d or more frames (%d tracks in %d frames); track more corners (--corners), lower --quality, or use frames closer together", factor.MinPoints, factor.MinFrames, len(set.Tracks), len(set.Frames))}
+		return nil, &InputError{errTooFewTracks(set)}
 	}
 	res.Window = w
 	m := CompleteMeasurements(w)
@@ -294,6 +316,7 @@ func Settings(cfg Config) map[string]any {
 		"track":     toMap(cfg.Track.WithDefaults()),
 		"factor":    toMap(cfg.Factor.WithDefaults()),
 		"robust":    toMap(cfg.Robust.WithDefaults()),
+		"missing":   toMap(cfg.Missing.WithDefaults()),
 		"range":     toMap(cfg.Range),
 		"ply_ascii": cfg.PLYASCII,
 	}

@@ -14,6 +14,7 @@ import (
 
 	"trackfactor/export"
 	"trackfactor/factor"
+	"trackfactor/pipeline"
 	"trackfactor/track"
 )
 
@@ -137,6 +138,8 @@ type factorFlags struct {
 	model       string
 	noiseSigma  float64
 	minRotation float64
+	intrinsics  string
+	perspMethod string
 }
 
 func (f *factorFlags) flags() []cli.Flag {
@@ -144,12 +147,14 @@ func (f *factorFlags) flags() []cli.Flag {
 	return []cli.Flag{
 		&cli.StringFlag{Name: "model", Category: "reconstruction", Usage: "camera model: " + strings.Join(modelNames(), ", "), Value: string(d.Model), Destination: &f.model},
 		&cli.Float64Flag{Name: "noise-sigma", Category: "reconstruction", Usage: "expected tracking noise per coordinate, px (0 = estimate from the data)", Value: 0, Destination: &f.noiseSigma},
+		&cli.StringFlag{Name: "intrinsics", Category: "reconstruction", Usage: "camera calibration file: our JSON/YAML (fx, fy, cx, cy, distortion) or an OpenCV FileStorage YAML (camera_matrix, distortion_coefficients); observations are undistorted first", Destination: &f.intrinsics},
+		&cli.StringFlag{Name: "perspective-method", Category: "reconstruction", Usage: "perspective model's start: " + factor.ChristyHoraud + " (iterative correction of an affine fit) or " + factor.SturmTriggs + " (projective factorization)", Value: factor.ChristyHoraud, Destination: &f.perspMethod},
 		&cli.Float64Flag{Name: "min-rotation", Category: "reconstruction", Usage: "smallest spread of viewing directions that constrains depth, degrees", Value: d.MinRotationDeg, Destination: &f.minRotation},
 	}
 }
 
 func modelNames() []string {
-	return []string{string(factor.Orthographic)}
+	return []string{string(factor.Orthographic), string(factor.ScaledOrthographic), string(factor.Paraperspective), string(factor.Perspective), string(factor.Auto)}
 }
 
 func (f *factorFlags) options() (factor.Options, error) {
@@ -160,7 +165,24 @@ func (f *factorFlags) options() (factor.Options, error) {
 	if !ok {
 		return factor.Options{}, usagef("--model %q is not known; use one of %s", f.model, strings.Join(modelNames(), ", "))
 	}
-	o := factor.Options{Model: factor.Model(f.model), NoiseSigma: f.noiseSigma, MinRotationDeg: f.minRotation}
+	o := factor.Options{Model: factor.Model(f.model), NoiseSigma: f.noiseSigma, MinRotationDeg: f.minRotation, PerspectiveMethod: f.perspMethod}
+	if f.perspMethod != factor.ChristyHoraud && f.perspMethod != factor.SturmTriggs {
+		return o, usagef("--perspective-method %q is not known; use %s or %s", f.perspMethod, factor.ChristyHoraud, factor.SturmTriggs)
+	}
+	if f.intrinsics != "" {
+		data, err := os.ReadFile(f.intrinsics)
+		if err != nil {
+			return o, &pipeline.InputError{Err: fmt.Errorf("--intrinsics: %w; give the calibration file's path", err)}
+		}
+		in, err := factor.ParseIntrinsics(data, f.intrinsics)
+		if err != nil {
+			return o, &pipeline.InputError{Err: err}
+		}
+		o.Intrinsics = &in
+	}
+	if o.Model == factor.Perspective && o.Intrinsics == nil {
+		return o, usagef("--model perspective needs the camera's intrinsics: add --intrinsics FILE (or use --model paraperspective, which can work without them)")
+	}
 	if math.IsNaN(f.noiseSigma) {
 		return o, usagef("--noise-sigma must be a number")
 	}
