@@ -11,8 +11,8 @@ import (
 	"testing"
 
 	"gocv.io/x/gocv"
-	"gopkg.in/yaml.v3"
 	"gonum.org/v1/gonum/mat"
+	"gopkg.in/yaml.v3"
 
 	"trackfactor/factor"
 )
