@@ -85,6 +85,19 @@ type Stats struct {
 	// Clamped lists any option the tracker had to change to run (for
 	// example pyramid levels reduced on a small image), in plain words.
 	Clamped []string
+
+	// Alive is the number of tracks of the Set still followed in the last
+	// frame. Detected = Alive + the sum of Ended (every detected corner
+	// either ends for one reason or survives).
+	Alive int
+	// Retried counts points tracked again on the full pyramid after the
+	// predicted, shallower run failed.
+	Retried int
+	// Live is the number of live tracks in each frame (after re-detection).
+	Live []int
+	// Reject is the report of the static-background and outlier checks
+	// (nil when they were off).
+	Reject *RejectReport
 }
 
 // CompleteSubset returns the tracks seen in every frame of [0, nFrames).

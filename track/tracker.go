@@ -1,0 +1,896 @@
+package track
+
+import (
+	"context"
+	"fmt"
+	"image"
+	"math"
+	"sync"
+
+	"gocv.io/x/gocv"
+)
+
+// Options configures Run. The zero value of every field means its
+// default; booleans are phrased so that false is the default.
+type Options struct {
+	// Detect configures corner detection (MaxCorners 1000, Quality 0.01,
+	// MinDistance 7 px, BlockSize 3, sub-pixel window 11×11). Its Border
+	// is raised to at least half the LK window plus one pixel, so new
+	// corners are not ended at once.
+	Detect DetectOptions
+
+	// Window is the side in pixels of the square LK window (odd, ≥ 5).
+	// Default 21. On frames smaller than twice the window it is reduced
+	// (reported in Stats.Clamped).
+	Window int
+	// Levels is the number of pyramid levels above full resolution
+	// (OpenCV's maxLevel). Default 3. Reduced, as OpenCV does silently,
+	// when a level would be no larger than the window; the reduction is
+	// reported in Stats.Clamped.
+	Levels int
+	// MaxIter and Epsilon stop LK's iterations at each level after MaxIter
+	// iterations or when an update is shorter than Epsilon pixels
+	// (OpenCV's TermCriteria(COUNT+EPS, MaxIter, Epsilon)). Defaults 30
+	// and 0.01 px, OpenCV's defaults for calcOpticalFlowPyrLK.
+	MaxIter int
+	Epsilon float64
+	// MinEigen is OpenCV's minEigThreshold: the smaller eigenvalue of the
+	// window's gradient matrix divided by the window's area, on 0..1
+	// grey levels. Below it a point ends with DropLowEigen. Default 1e-4
+	// (OpenCV's default).
+	MinEigen float64
+	// FBThreshold is the forward–backward check: a point tracked to the
+	// next frame and back must land within FBThreshold pixels of where it
+	// started (Kalal, Mikolajczyk & Matas, ICPR 2010), else it ends with
+	// DropForwardBack. Default 0.5 px; negative turns the check off.
+	FBThreshold float64
+
+	// NoPredict turns motion prediction off. With prediction (default)
+	// each point starts LK from its previous position plus its previous
+	// displacement (OPTFLOW_USE_INITIAL_FLOW) on PredictLevels pyramid
+	// levels; points that fail are tracked again without prediction on all
+	// Levels ("deep retry", counted in Stats.Retried).
+	NoPredict bool
+	// PredictLevels is the number of pyramid levels used with prediction.
+	// Default 1; at most Levels.
+	PredictLevels int
+
+	// RedetectEvery re-detects corners in empty areas every K frames.
+	// Default 5; negative means only when the count falls (RedetectBelow).
+	RedetectEvery int
+	// RedetectBelow re-detects whenever the number of live tracks falls
+	// below this fraction of min(MaxCorners, the count after the last
+	// detection). Default 0.7; negative turns it off.
+	RedetectBelow float64
+
+	// MinLength drops tracks with fewer observations (DropTooShort).
+	// Default 2.
+	MinLength int
+
+	// Refine configures drift-free refinement against each track's
+	// reference patch (on by default; Refine.Off turns it off).
+	Refine RefineOptions
+	// Reject configures static-background and outlier rejection after
+	// tracking (on by default; Reject.Off turns both off).
+	Reject RejectOptions
+
+	// Prefetch is the number of frames decoded ahead in a goroutine while
+	// the current pair is tracked. Default 2; negative decodes in line.
+	Prefetch int
+}
+
+const (
+	defaultWindow        = 21
+	defaultLevels        = 3
+	defaultLKIter        = 30
+	defaultLKEps         = 0.01
+	defaultMinEigen      = 1e-4
+	defaultFB            = 0.5
+	defaultPredictLevels = 1
+	defaultRedetectEvery = 5
+	defaultRedetectBelow = 0.7
+	defaultMinLength     = 2
+	defaultPrefetch      = 2
+	minWindow            = 5
+)
+
+// Validate reports the first option that breaks its rule, naming the
+// field, the value and the rule.
+func (o Options) Validate() error {
+	if err := o.Detect.Validate(); err != nil {
+		return err
+	}
+	if err := o.Refine.Validate(); err != nil {
+		return err
+	}
+	if err := o.Reject.Validate(); err != nil {
+		return err
+	}
+	switch {
+	case o.Window < 0 || (o.Window != 0 && (o.Window < minWindow || o.Window%2 == 0)):
+		return fmt.Errorf("track: Window %d must be odd and at least %d (0 = default %d)", o.Window, minWindow, defaultWindow)
+	case o.Levels < 0 || o.Levels > 10:
+		return fmt.Errorf("track: Levels %d must be in 0..10 (0 = default %d)", o.Levels, defaultLevels)
+	case o.MaxIter < 0:
+		return fmt.Errorf("track: MaxIter %d is negative (0 = default %d)", o.MaxIter, defaultLKIter)
+	case o.Epsilon < 0 || math.IsNaN(o.Epsilon):
+		return fmt.Errorf("track: Epsilon %g must be a positive number of pixels (0 = default %g)", o.Epsilon, defaultLKEps)
+	case o.MinEigen < 0 || math.IsNaN(o.MinEigen):
+		return fmt.Errorf("track: MinEigen %g is negative (0 = default %g)", o.MinEigen, defaultMinEigen)
+	case math.IsNaN(o.FBThreshold):
+		return fmt.Errorf("track: FBThreshold is NaN; give pixels (0 = default %g, negative = off)", defaultFB)
+	case o.PredictLevels < 0 || o.PredictLevels > 10:
+		return fmt.Errorf("track: PredictLevels %d must be in 0..10 (0 = default %d)", o.PredictLevels, defaultPredictLevels)
+	case math.IsNaN(o.RedetectBelow) || o.RedetectBelow >= 1:
+		return fmt.Errorf("track: RedetectBelow %g must be below 1 (0 = default %g, negative = off)", o.RedetectBelow, defaultRedetectBelow)
+	case o.MinLength < 0:
+		return fmt.Errorf("track: MinLength %d is negative (0 = default %d)", o.MinLength, defaultMinLength)
+	}
+	return nil
+}
+
+func (o Options) withDefaults() Options {
+	o.Detect = o.Detect.withDefaults()
+	o.Refine = o.Refine.withDefaults()
+	o.Reject = o.Reject.withDefaults()
+	if o.Window == 0 {
+		o.Window = defaultWindow
+	}
+	if o.Levels == 0 {
+		o.Levels = defaultLevels
+	}
+	if o.MaxIter == 0 {
+		o.MaxIter = defaultLKIter
+	}
+	if o.Epsilon == 0 {
+		o.Epsilon = defaultLKEps
+	}
+	if o.MinEigen == 0 {
+		o.MinEigen = defaultMinEigen
+	}
+	if o.FBThreshold == 0 {
+		o.FBThreshold = defaultFB
+	}
+	if o.PredictLevels == 0 {
+		o.PredictLevels = defaultPredictLevels
+	}
+	if o.RedetectEvery == 0 {
+		o.RedetectEvery = defaultRedetectEvery
+	}
+	if o.RedetectBelow == 0 {
+		o.RedetectBelow = defaultRedetectBelow
+	}
+	if o.MinLength == 0 {
+		o.MinLength = defaultMinLength
+	}
+	if o.Prefetch == 0 {
+		o.Prefetch = defaultPrefetch
+	}
+	return o
+}
+
+// pyramidLevels is the number of levels OpenCV's buildOpticalFlowPyramid
+// actually builds (lkpyramid.cpp, OpenCV 4.6): it stops at the first level
+// whose half-size ((w+1)/2, (h+1)/2) is no larger than the window.
+func pyramidLevels(w, h, win, maxLevel int) int {
+	for l := 0; l < maxLevel; l++ {
+		w, h = (w+1)/2, (h+1)/2
+		if w <= win || h <= win {
+			return l
+		}
+	}
+	return maxLevel
+}
+
+// Run detects corners in the first frame of src and follows them
+// through every frame with pyramidal Lucas–Kanade, checks and refines
+// them, re-detects to keep coverage and returns the tracks with their
+// diagnostics. progress, if not nil, is called after each frame with the
+// number of frames done and the total. Cancelling ctx stops the work and
+// returns ctx's error.
+//
+// Each frame pair (f−1, f):
+//  1. LK forward from f−1 to f (OpenCV calcOpticalFlowPyrLK, window
+//     Window², Levels levels; with prediction PredictLevels levels from
+//     the previous displacement), LK backward from f to f−1, and a deep
+//     retry of failures;
+//  2. each point is ended with a reason: not found, low eigenvalue, left
+//     the image (or within half a window of the border), forward–backward
+//     distance above FBThreshold;
+//  3. survivors are refined against their reference patch (RefineOptions)
+//     and ended on appearance drift;
+//  4. every RedetectEvery frames, or when too few tracks are live, new
+//     corners are detected away (MinDistance) from live tracks.
+//
+// After the last frame, tracks shorter than MinLength are dropped and the
+// static-background and outlier checks run (RejectOptions).
+func Run(ctx context.Context, src Source, opts Options, progress func(done, total int)) (*Set, error) {
+	if src == nil {
+		panic("track: Run with a nil Source")
+	}
+	if err := opts.Validate(); err != nil {
+		return nil, err
+	}
+	n := src.Len()
+	if n < MinFrames {
+		return nil, fmt.Errorf("track: the source has %d frames; at least %d are needed", n, MinFrames)
+	}
+	w, h := src.Size()
+	t := newTracker(opts.withDefaults(), w, h, opts)
+	defer t.close()
+	if t.o.Detect.Mask != nil && len(t.o.Detect.Mask) != w*h {
+		return nil, fmt.Errorf("track: detect mask has %d entries for %dx%d frames; give Width·Height = %d", len(t.o.Detect.Mask), w, h, w*h)
+	}
+
+	set := &Set{Frames: make([]string, n), Width: w, Height: h}
+	for i := range set.Frames {
+		set.Frames[i] = src.Name(i)
+	}
+	set.Stats.Ended = map[string]int{}
+	set.Stats.Clamped = t.clamped
+
+	frames, stop := startReader(ctx, src, n, t.o.Prefetch, !t.o.Refine.Off, t.o.Refine.Sigma)
+	defer stop()
+
+	var prev *frameBuf
+	for f := 0; f < n; f++ {
+		cur, err := frames.next(ctx)
+		if err != nil {
+			return nil, err
+		}
+		if f == 0 {
+			t.detectNew(cur, 0)
+			if len(t.live) == 0 {
+				return nil, fmt.Errorf("track: no corners found in frame %s; the frame may be blank, flat or blurred (try a lower Detect.Quality)", src.Name(0))
+			}
+		} else {
+			t.step(prev, cur, f)
+			t.maybeRedetect(cur, f)
+			frames.release(prev)
+		}
+		t.liveCount = append(t.liveCount, len(t.live))
+		prev = cur
+		if progress != nil {
+			progress(f+1, n)
+		}
+	}
+	frames.release(prev)
+	t.finish(set)
+	if !t.o.Reject.Off {
+		rep, err := Reject(ctx, set, t.o.Reject)
+		if err != nil {
+			return nil, err
+		}
+		t.applyReject(set, rep)
+	}
+	return set, nil
+}
+
+// lkMat is a reusable N×1 CV_32FC2 (or CV_8U / CV_32F) Mat of a given
+// capacity, viewed as its first n rows for each call.
+type lkMat struct {
+	m   gocv.Mat
+	cap int
+	typ gocv.MatType
+}
+
+func (b *lkMat) view(n int) gocv.Mat {
+	if n > b.cap {
+		if b.cap > 0 {
+			b.m.Close()
+		}
+		b.cap = max(2*b.cap, n, 256)
+		b.m = gocv.NewMatWithSize(b.cap, 1, b.typ)
+	}
+	return b.m.RowRange(0, n)
+}
+
+func (b *lkMat) close() {
+	if b.cap > 0 {
+		b.m.Close()
+		b.cap = 0
+	}
+}
+
+// tracker holds the state of one Run call.
+type tracker struct {
+	o       Options
+	w, h    int
+	margin  int // half window: points closer to the border are ended
+	levels  int // effective pyramid levels
+	plevels int // effective levels with prediction
+	clamped []string
+
+	crit gocv.TermCriteria
+	det  *detector
+	in   lkMat // prevPts
+	out  lkMat // nextPts
+	st   lkMat // status
+	er   lkMat // err (min eigenvalues)
+
+	tracks  []Track
+	reasons []string // end reason per track id ("" = alive)
+	live    []liveTrack
+
+	// scratch, reused every frame
+	px, py, fx, fy, bx, by, ix, iy []float32
+	vx, vy, rpx, rpy, rfx, rfy     []float32
+	rdrop                          []string
+	xs, ys                         []float64
+	sf, sb                         []uint8
+	ef, eb                         []float32
+	idx                            []int
+	drop                           []string
+	rp                             []*refPatch
+	rr                             []refineResult
+	baseMask                       []uint8
+	mask                           []uint8
+	patchBuf                       []float32
+
+	lastDetected int
+	liveCount    []int
+	retried      int
+	detected     int
+}
+
+// liveTrack is a track being followed.
+type liveTrack struct {
+	id     int
+	x, y   float64 // position in the last frame
+	vx, vy float64 // last displacement
+	ref    *refPatch
+}
+
+func newTracker(o Options, w, h int, given Options) *tracker {
+	t := &tracker{o: o, w: w, h: h}
+	win := o.Window
+	if lim := min(w, h) / 2; win > lim {
+		lim = max(minWindow, lim-(1-lim%2)) // odd
+		if lim < win {
+			t.clamped = append(t.clamped, fmt.Sprintf("LK window %d px reduced to %d px on %dx%d frames (at most half the smaller side)", win, lim, w, h))
+			win = lim
+		}
+	}
+	t.o.Window = win
+	t.margin = win / 2
+	t.levels = pyramidLevels(w, h, win, o.Levels)
+	if t.levels < o.Levels {
+		t.clamped = append(t.clamped, fmt.Sprintf("pyramid levels %d reduced to %d on %dx%d frames with a %d px window (a coarser level would be no larger than the window)", o.Levels, t.levels, w, h, win))
+	}
+	t.plevels = min(o.PredictLevels, t.levels)
+	if !o.NoPredict && given.PredictLevels > t.levels {
+		t.clamped = append(t.clamped, fmt.Sprintf("PredictLevels %d reduced to %d (the pyramid levels in use)", given.PredictLevels, t.plevels))
+	}
+	if o.Detect.Border < t.margin+1 {
+		t.o.Detect.Border = t.margin + 1
+	}
+	if o.Refine.HalfPatch > t.margin && !o.Refine.Off {
+		t.clamped = append(t.clamped, fmt.Sprintf("refine HalfPatch %d reduced to %d (half the LK window)", o.Refine.HalfPatch, t.margin))
+		t.o.Refine.HalfPatch = t.margin
+	}
+	t.crit = gocv.NewTermCriteria(gocv.Count|gocv.EPS, o.MaxIter, o.Epsilon)
+	t.det = newDetector()
+	t.in.typ, t.out.typ = gocv.MatTypeCV32FC2, gocv.MatTypeCV32FC2
+	t.st.typ, t.er.typ = gocv.MatTypeCV8U, gocv.MatTypeCV32F
+	// Detection mask: the user's mask minus the border band.
+	t.baseMask = make([]uint8, w*h)
+	b := t.o.Detect.Border
+	for y := b; y < h-b; y++ {
+		for x := b; x < w-b; x++ {
+			i := y*w + x
+			if o.Detect.Mask == nil || (len(o.Detect.Mask) == w*h && o.Detect.Mask[i]) {
+				t.baseMask[i] = 1
+			}
+		}
+	}
+	t.mask = make([]uint8, w*h)
+	hp := t.o.Refine.HalfPatch
+	t.patchBuf = make([]float32, (2*hp+3)*(2*hp+3))
+	return t
+}
+
+func (t *tracker) close() {
+	t.det.close()
+	t.in.close()
+	t.out.close()
+	t.st.close()
+	t.er.close()
+}
+
+// inside reports whether (x, y) is at least half a window from the border.
+func (t *tracker) inside(x, y float64) bool {
+	m := float64(t.margin)
+	return x >= m && y >= m && x <= float64(t.w-1)-m && y <= float64(t.h-1)-m && !math.IsNaN(x) && !math.IsNaN(y)
+}
+
+// lk runs OpenCV's pyramidal LK on n points from prev to next. With init,
+// (ix, iy) are the starting guesses (OPTFLOW_USE_INITIAL_FLOW). Results:
+// positions (ox, oy), status and the minimum eigenvalue per point
+// (OPTFLOW_LK_GET_MIN_EIGENVALS).
+func (t *tracker) lk(prev, next gocv.Mat, px, py, ix, iy []float32, init bool, levels int, ox, oy []float32, st []uint8, eg []float32) {
+	n := len(px)
+	if n == 0 {
+		return
+	}
+	in := t.in.view(n)
+	out := t.out.view(n)
+	sm := t.st.view(n)
+	em := t.er.view(n)
+	defer func() {
+		in.Close()
+		out.Close()
+		sm.Close()
+		em.Close()
+	}()
+	p, _ := in.DataPtrFloat32()
+	for i := 0; i < n; i++ {
+		p[2*i], p[2*i+1] = px[i], py[i]
+	}
+	flags := gocv.OptflowLkGetMinEigenvals
+	if init {
+		q, _ := out.DataPtrFloat32()
+		for i := 0; i < n; i++ {
+			q[2*i], q[2*i+1] = ix[i], iy[i]
+		}
+		flags |= gocv.OptflowUseInitialFlow
+	}
+	win := image.Pt(t.o.Window, t.o.Window)
+	gocv.CalcOpticalFlowPyrLKWithParams(prev, next, in, out, &sm, &em, win, levels, t.crit, flags, t.o.MinEigen)
+	q, _ := out.DataPtrFloat32()
+	s, _ := sm.DataPtrUint8()
+	e, _ := em.DataPtrFloat32()
+	for i := 0; i < n; i++ {
+		ox[i], oy[i] = q[2*i], q[2*i+1]
+		st[i] = s[i]
+		eg[i] = e[i]
+	}
+}
+
+func grow32(s []float32, n int) []float32 {
+	if cap(s) < n {
+		return make([]float32, n, 2*n)
+	}
+	return s[:n]
+}
+
+func grow8(s []uint8, n int) []uint8 {
+	if cap(s) < n {
+		return make([]uint8, n, 2*n)
+	}
+	return s[:n]
+}
+
+// track runs forward and backward LK for the points (px, py) and
+// classifies each: "" kept, else a Drop* reason. Results in t.fx, t.fy.
+func (t *tracker) track(prev, cur gocv.Mat, predict bool, levels int, px, py, vx, vy []float32, fx, fy []float32, drop []string) {
+	n := len(px)
+	t.ix, t.iy = grow32(t.ix, n), grow32(t.iy, n)
+	t.sf, t.ef = grow8(t.sf, n), grow32(t.ef, n)
+	if predict {
+		for i := 0; i < n; i++ {
+			t.ix[i], t.iy[i] = px[i]+vx[i], py[i]+vy[i]
+		}
+	}
+	t.lk(prev, cur, px, py, t.ix, t.iy, predict, levels, fx, fy, t.sf, t.ef)
+	fb := t.o.FBThreshold > 0
+	if fb {
+		t.bx, t.by = grow32(t.bx, n), grow32(t.by, n)
+		t.sb, t.eb = grow8(t.sb, n), grow32(t.eb, n)
+		if predict {
+			// Start the backward run from the forward result minus the
+			// prediction, not from the original point (which would bias
+			// the check towards success).
+			for i := 0; i < n; i++ {
+				t.ix[i], t.iy[i] = fx[i]-vx[i], fy[i]-vy[i]
+			}
+		}
+		t.lk(cur, prev, fx, fy, t.ix, t.iy, predict, levels, t.bx, t.by, t.sb, t.eb)
+	}
+	fb2 := t.o.FBThreshold * t.o.FBThreshold
+	minEig := float32(t.o.MinEigen)
+	for i := 0; i < n; i++ {
+		x, y := float64(fx[i]), float64(fy[i])
+		switch {
+		case t.sf[i] == 0 && !t.inside(x, y):
+			drop[i] = DropLeftImage
+		case t.sf[i] == 0 && t.ef[i] < minEig:
+			drop[i] = DropLowEigen
+		case t.sf[i] == 0:
+			drop[i] = DropNotFound
+		case !t.inside(x, y):
+			drop[i] = DropLeftImage
+		case fb && (t.sb[i] == 0 || sq(float64(t.bx[i]-px[i]))+sq(float64(t.by[i]-py[i])) > fb2):
+			drop[i] = DropForwardBack
+		default:
+			drop[i] = ""
+		}
+	}
+}
+
+func sq(v float64) float64 { return v * v }
+
+// step tracks the live tracks from frame f−1 to f.
+func (t *tracker) step(prev, cur *frameBuf, f int) {
+	n := len(t.live)
+	if n == 0 {
+		return
+	}
+	t.px, t.py = grow32(t.px, n), grow32(t.py, n)
+	t.fx, t.fy = grow32(t.fx, n), grow32(t.fy, n)
+	t.vx, t.vy = grow32(t.vx, n), grow32(t.vy, n)
+	vx, vy := t.vx, t.vy
+	if cap(t.drop) < n {
+		t.drop = make([]string, n, 2*n)
+	}
+	t.drop = t.drop[:n]
+	for i, l := range t.live {
+		t.px[i], t.py[i] = float32(l.x), float32(l.y)
+		vx[i], vy[i] = float32(l.vx), float32(l.vy)
+	}
+	predict := !t.o.NoPredict
+	levels := t.levels
+	if predict {
+		levels = t.plevels
+	}
+	t.track(prev.gray, cur.gray, predict, levels, t.px, t.py, vx, vy, t.fx, t.fy, t.drop)
+
+	// Deep retry of failures without prediction on all levels.
+	if predict && t.plevels < t.levels {
+		t.idx = t.idx[:0]
+		for i, d := range t.drop {
+			if d != "" && d != DropLowEigen {
+				t.idx = append(t.idx, i)
+			}
+		}
+		if m := len(t.idx); m > 0 {
+			t.retried += m
+			t.rpx, t.rpy = grow32(t.rpx, m), grow32(t.rpy, m)
+			t.rfx, t.rfy = grow32(t.rfx, m), grow32(t.rfy, m)
+			if cap(t.rdrop) < m {
+				t.rdrop = make([]string, m, 2*m)
+			}
+			rpx, rpy, rfx, rfy, rdrop := t.rpx, t.rpy, t.rfx, t.rfy, t.rdrop[:m]
+			for k, i := range t.idx {
+				rpx[k], rpy[k] = t.px[i], t.py[i]
+			}
+			t.track(prev.gray, cur.gray, false, t.levels, rpx, rpy, nil, nil, rfx, rfy, rdrop)
+			for k, i := range t.idx {
+				t.fx[i], t.fy[i], t.drop[i] = rfx[k], rfy[k], rdrop[k]
+			}
+		}
+	}
+
+	// Refinement against the reference patches.
+	refine := !t.o.Refine.Off
+	if refine {
+		t.rp = t.rp[:0]
+		if cap(t.xs) < n {
+			t.xs, t.ys = make([]float64, n, 2*n), make([]float64, n, 2*n)
+		}
+		xs, ys := t.xs[:n], t.ys[:n]
+		for i, l := range t.live {
+			xs[i], ys[i] = float64(t.fx[i]), float64(t.fy[i])
+			if t.drop[i] == "" {
+				t.rp = append(t.rp, l.ref)
+			} else {
+				t.rp = append(t.rp, nil)
+			}
+		}
+		if cap(t.rr) < n {
+			t.rr = make([]refineResult, n, 2*n)
+		}
+		t.rr = t.rr[:n]
+		refineAll(&cur.fl, t.rp, xs, ys, t.rr, t.o.Refine.HalfPatch, &t.o.Refine)
+	}
+
+	kept := t.live[:0]
+	for i, l := range t.live {
+		reason := t.drop[i]
+		x, y := float64(t.fx[i]), float64(t.fy[i])
+		q := 0.0
+		if reason == "" && refine {
+			r := t.rr[i]
+			switch {
+			case !r.ok:
+				reason = DropAppearance
+			case t.o.Refine.MinNCC > 0 && r.ncc < t.o.Refine.MinNCC:
+				reason = DropAppearance
+			case !t.inside(r.x, r.y):
+				reason = DropLeftImage
+			default:
+				x, y, q = r.x, r.y, math.Max(0, math.Min(1, r.ncc))
+			}
+		}
+		if reason != "" {
+			t.reasons[l.id] = reason
+			continue
+		}
+		tr := &t.tracks[l.id]
+		tr.Obs = append(tr.Obs, Observation{Frame: f, X: x, Y: y, Quality: q})
+		l.vx, l.vy = x-l.x, y-l.y
+		l.x, l.y = x, y
+		kept = append(kept, l)
+	}
+	for i := len(kept); i < len(t.live); i++ {
+		t.live[i] = liveTrack{}
+	}
+	t.live = kept
+}
+
+// maybeRedetect adds tracks in empty areas of frame f when due.
+func (t *tracker) maybeRedetect(cur *frameBuf, f int) {
+	due := t.o.RedetectEvery > 0 && f%t.o.RedetectEvery == 0
+	if t.o.RedetectBelow > 0 {
+		ref := min(t.o.Detect.MaxCorners, t.lastDetected)
+		if float64(len(t.live)) < t.o.RedetectBelow*float64(ref) {
+			due = true
+		}
+	}
+	if due && len(t.live) < t.o.Detect.MaxCorners {
+		t.detectNew(cur, f)
+	}
+}
+
+// detectNew detects corners in frame f away from live tracks and starts
+// tracks on them.
+func (t *tracker) detectNew(cur *frameBuf, f int) {
+	copy(t.mask, t.baseMask)
+	r := math.Max(0, t.o.Detect.MinDistance)
+	ri := int(math.Ceil(r))
+	r2 := r * r
+	for _, l := range t.live {
+		cx, cy := int(math.Round(l.x)), int(math.Round(l.y))
+		for y := max(0, cy-ri); y <= min(t.h-1, cy+ri); y++ {
+			dy := float64(y) - l.y
+			row := t.mask[y*t.w:]
+			for x := max(0, cx-ri); x <= min(t.w-1, cx+ri); x++ {
+				dx := float64(x) - l.x
+				if dx*dx+dy*dy < r2 {
+					row[x] = 0
+				}
+			}
+		}
+	}
+	o := t.o.Detect
+	o.MaxCorners = t.o.Detect.MaxCorners - len(t.live)
+	corners := t.det.detect(cur.gray, o, nil, t.mask)
+	bgr, _ := cur.bgr.DataPtrUint8()
+	for _, c := range corners {
+		if !t.inside(c.X, c.Y) {
+			continue
+		}
+		id := len(t.tracks)
+		t.detected++
+		tr := Track{ID: id, RGB: sampleRGB(bgr, t.w, t.h, c.X, c.Y)}
+		q := 0.0
+		var ref *refPatch
+		if !t.o.Refine.Off {
+			var ok bool
+			ref, ok = newRefPatch(&cur.fl, c.X, c.Y, t.o.Refine.HalfPatch, t.patchBuf)
+			if !ok {
+				tr.Obs = []Observation{{Frame: f, X: c.X, Y: c.Y}}
+				t.tracks = append(t.tracks, tr)
+				t.reasons = append(t.reasons, DropLowEigen)
+				continue
+			}
+			q = 1
+		}
+		tr.Obs = []Observation{{Frame: f, X: c.X, Y: c.Y, Quality: q}}
+		t.tracks = append(t.tracks, tr)
+		t.reasons = append(t.reasons, "")
+		t.live = append(t.live, liveTrack{id: id, x: c.X, y: c.Y, ref: ref})
+	}
+	t.lastDetected = len(t.live)
+}
+
+// sampleRGB samples a BGR image bilinearly at (x, y).
+func sampleRGB(bgr []uint8, w, h int, x, y float64) [3]uint8 {
+	x = math.Max(0, math.Min(float64(w-1), x))
+	y = math.Max(0, math.Min(float64(h-1), y))
+	x0, y0 := int(x), int(y)
+	x1, y1 := min(x0+1, w-1), min(y0+1, h-1)
+	fx, fy := x-float64(x0), y-float64(y0)
+	var out [3]uint8
+	for c := 0; c < 3; c++ {
+		p00 := float64(bgr[(y0*w+x0)*3+c])
+		p01 := float64(bgr[(y0*w+x1)*3+c])
+		p10 := float64(bgr[(y1*w+x0)*3+c])
+		p11 := float64(bgr[(y1*w+x1)*3+c])
+		v := (1-fy)*((1-fx)*p00+fx*p01) + fy*((1-fx)*p10+fx*p11)
+		out[2-c] = uint8(math.Round(math.Max(0, math.Min(255, v))))
+	}
+	return out
+}
+
+// finish moves the tracks into set, dropping short ones, and fills Stats.
+func (t *tracker) finish(set *Set) {
+	st := &set.Stats
+	for id := range t.tracks {
+		tr := t.tracks[id]
+		if len(tr.Obs) < t.o.MinLength {
+			st.Ended[DropTooShort]++
+			t.reasons[id] = DropTooShort
+			continue
+		}
+		if r := t.reasons[id]; r != "" {
+			st.Ended[r]++
+		} else {
+			st.Alive++
+		}
+		set.Tracks = append(set.Tracks, tr)
+	}
+	st.Detected = t.detected
+	st.Retried = t.retried
+	st.Live = t.liveCount
+}
+
+// applyReject moves the counts of tracks the rejection removed or cut from
+// their previous reason to the rejection's.
+func (t *tracker) applyReject(set *Set, rep *RejectReport) {
+	st := &set.Stats
+	move := func(id int, to string) {
+		if r := t.reasons[id]; r != "" {
+			st.Ended[r]--
+			if st.Ended[r] == 0 {
+				delete(st.Ended, r)
+			}
+		} else {
+			st.Alive--
+		}
+		st.Ended[to]++
+		t.reasons[id] = to
+	}
+	for _, id := range rep.Static {
+		move(id, DropStatic)
+	}
+	for _, id := range rep.Outliers {
+		move(id, DropOutlier)
+	}
+	st.Reject = rep
+}
+
+// frameBuf is one decoded frame: colour, grey and (for refinement) float.
+type frameBuf struct {
+	i         int
+	bgr, gray gocv.Mat
+	smooth    gocv.Mat   // CV_32F, Gaussian-smoothed grey for refinement
+	fl        floatImage // aliases smooth's data
+	err       error
+}
+
+// frameReader decodes frames in a goroutine, Prefetch frames ahead,
+// through a fixed pool of buffers (no per-frame allocation after the
+// first frames).
+type frameReader struct {
+	src    Source
+	n      int
+	float  bool
+	sigma  float64
+	inline bool
+	next_  int
+	free   chan *frameBuf
+	ready  chan *frameBuf
+	all    []*frameBuf
+	cancel context.CancelFunc
+	wg     sync.WaitGroup
+}
+
+func startReader(ctx context.Context, src Source, n, prefetch int, float bool, sigma float64) (*frameReader, func()) {
+	r := &frameReader{src: src, n: n, float: float, sigma: sigma}
+	nbuf := 2
+	if prefetch > 0 {
+		nbuf += prefetch
+	} else {
+		r.inline = true
+	}
+	r.free = make(chan *frameBuf, nbuf)
+	for i := 0; i < nbuf; i++ {
+		b := &frameBuf{bgr: gocv.NewMat(), gray: gocv.NewMat(), smooth: gocv.NewMat()}
+		r.all = append(r.all, b)
+		r.free <- b
+	}
+	if !r.inline {
+		var cctx context.Context
+		cctx, r.cancel = context.WithCancel(ctx)
+		r.ready = make(chan *frameBuf, prefetch)
+		r.wg.Add(1)
+		go r.run(cctx)
+	}
+	stop := func() {
+		if r.cancel != nil {
+			r.cancel()
+			for range r.ready {
+			}
+			r.wg.Wait()
+		}
+		for _, b := range r.all {
+			b.bgr.Close()
+			b.gray.Close()
+			b.smooth.Close()
+		}
+	}
+	return r, stop
+}
+
+func (r *frameReader) load(ctx context.Context, b *frameBuf, i int) {
+	b.i = i
+	b.err = r.src.Read(ctx, i, &b.bgr)
+	if b.err != nil {
+		return
+	}
+	if b.bgr.Type() != gocv.MatTypeCV8UC3 {
+		b.err = fmt.Errorf("track: frame %s: the source gave a Mat of type %v, want 8-bit BGR", r.src.Name(i), b.bgr.Type())
+		return
+	}
+	gocv.CvtColor(b.bgr, &b.gray, gocv.ColorBGRToGray)
+	if r.float {
+		b.gray.ConvertTo(&b.smooth, gocv.MatTypeCV32F)
+		if r.sigma > 0 {
+			// Kernel size 0: OpenCV derives it from sigma (±3σ for float).
+			gocv.GaussianBlur(b.smooth, &b.smooth, image.Pt(0, 0), r.sigma, r.sigma, gocv.BorderReflect101)
+		}
+		p, err := b.smooth.DataPtrFloat32()
+		if err != nil {
+			b.err = fmt.Errorf("track: frame %s: %v", r.src.Name(i), err)
+			return
+		}
+		b.fl = floatImage{w: b.smooth.Cols(), h: b.smooth.Rows(), pix: p}
+	}
+}
+
+func (r *frameReader) run(ctx context.Context) {
+	defer r.wg.Done()
+	defer close(r.ready)
+	for i := 0; i < r.n; i++ {
+		var b *frameBuf
+		select {
+		case b = <-r.free:
+		case <-ctx.Done():
+			return
+		}
+		r.load(ctx, b, i)
+		select {
+		case r.ready <- b:
+		case <-ctx.Done():
+			return
+		}
+		if b.err != nil {
+			return
+		}
+	}
+}
+
+// next returns the next decoded frame.
+func (r *frameReader) next(ctx context.Context) (*frameBuf, error) {
+	if r.inline {
+		b := <-r.free
+		r.load(ctx, b, r.next_)
+		r.next_++
+		if b.err != nil {
+			return nil, b.err
+		}
+		return b, nil
+	}
+	select {
+	case b, ok := <-r.ready:
+		if !ok {
+			if err := ctx.Err(); err != nil {
+				return nil, err
+			}
+			return nil, fmt.Errorf("track: frame reader stopped early")
+		}
+		if b.err != nil {
+			return nil, b.err
+		}
+		return b, nil
+	case <-ctx.Done():
+		return nil, ctx.Err()
+	}
+}
+
+// release hands a frame buffer back to the reader.
+func (r *frameReader) release(b *frameBuf) {
+	if b != nil {
+		r.free <- b
+	}
+}
