@@ -25,12 +25,50 @@ func Factorize(ctx context.Context, m *Measurements, opts Options) (*Reconstruct
 	}
 	opts = opts.withDefaults()
 	checkShape(m)
-	switch opts.Model {
-	case Orthographic:
-		return factorOrthographic(ctx, m, opts)
-	default:
-		return nil, fmt.Errorf("factor: model %q is not available; use %q", opts.Model, Orthographic)
+	m, undistorted, err := undistortMeasurements(m, opts.Intrinsics)
+	if err != nil {
+		return nil, err
 	}
+	var rec *Reconstruction
+	switch opts.Model {
+	case Orthographic, ScaledOrthographic, Paraperspective:
+		rec, err = factorAffine(ctx, m, opts, opts.Model)
+	case Perspective:
+		rec, err = factorPerspective(ctx, m, opts)
+	case Auto:
+		rec, err = factorAuto(ctx, m, opts)
+	}
+	if err != nil {
+		return nil, err
+	}
+	rec.Diagnostics.Undistorted = undistorted
+	return rec, nil
+}
+
+// undistortMeasurements returns m with every observed point undistorted by
+// in (a copy; m itself is not changed), or m itself when in is nil or has
+// no distortion.
+func undistortMeasurements(m *Measurements, in *Intrinsics) (*Measurements, bool, error) {
+	if in == nil || !in.HasDistortion() {
+		return m, false, nil
+	}
+	nf, np := m.Dims()
+	out := *m
+	out.W = mat.DenseCopyOf(m.W)
+	for i := 0; i < nf; i++ {
+		xr, yr := out.W.RawRowView(2*i), out.W.RawRowView(2*i+1)
+		for j := 0; j < np; j++ {
+			if !m.Observed(i, j) {
+				continue
+			}
+			u, v, ok := in.Undistort(xr[j], yr[j])
+			if !ok {
+				return nil, false, fmt.Errorf("factor: point %d in frame %d at (%.1f, %.1f) px cannot be undistorted (it lies where the distortion model folds over); check that the intrinsics belong to this camera and image size", j, i, xr[j], yr[j])
+			}
+			xr[j], yr[j] = u, v
+		}
+	}
+	return &out, true, nil
 }
 
 func checkShape(m *Measurements) {
@@ -86,35 +124,57 @@ func centre(w *mat.Dense) (*mat.Dense, []float64) {
 
 // rank3 is the truncated factorization W̃ ≈ M̂ Ŝ and the spectrum.
 type rank3 struct {
-	M, S   *mat.Dense // 2F×3, 3×P
-	Values []float64  // all singular values, largest first
-	Resid2 float64    // Σ_{k>3} σ_k² = ‖W̃ − M̂Ŝ‖²_F
+	M, S   *mat.Dense // 2F×k, k×P (k = 3 unless made by factorRankK)
+	Values []float64  // singular values, largest first (all of them for the full SVD, the leading Ritz values for the truncated one)
+	Resid2 float64    // Σ_{i>k} σ_i² = ‖W̃ − M̂Ŝ‖²_F
 }
 
+// factorRank3 computes the rank-3 factorization W̃ ≈ M̂ Ŝ. For
+// min(2F, P) > truncatedSVDMinDim it uses the truncated randomized SVD
+// (randomizedSVD), which then returns only the leading Ritz values in
+// Values; below that the full thin SVD of gonum.
 func factorRank3(wc *mat.Dense) (rank3, error) {
-	var svd mat.SVD
-	if !svd.Factorize(wc, mat.SVDThin) {
-		return rank3{}, errors.New("factor: SVD of the measurement matrix did not converge")
-	}
-	vals := svd.Values(nil)
-	var u, v mat.Dense
-	svd.UTo(&u)
-	svd.VTo(&v)
+	return factorRankK(wc, 3, false)
+}
+
+// factorRankK is factorRank3 for rank k (k = 4 for the projective
+// factorization); truncated forces the randomized SVD at any size.
+func factorRankK(wc *mat.Dense, k int, truncated bool) (rank3, error) {
 	r, c := wc.Dims()
-	M := mat.NewDense(r, 3, nil)
-	S := mat.NewDense(3, c, nil)
-	for k := 0; k < 3; k++ {
-		s := math.Sqrt(vals[k])
-		for i := 0; i < r; i++ {
-			M.Set(i, k, u.At(i, k)*s)
+	var (
+		vals []float64
+		u, v *mat.Dense
+		res  float64
+	)
+	if truncated || min(r, c) > truncatedSVDMinDim {
+		ps, err := randomizedSVD(wc, k, rsvdConfig{})
+		if err != nil {
+			return rank3{}, err
 		}
-		for j := 0; j < c; j++ {
-			S.Set(k, j, v.At(j, k)*s)
+		vals, u, v, res = ps.Values, ps.U, ps.V, ps.Resid2
+	} else {
+		var svd mat.SVD
+		if !svd.Factorize(wc, mat.SVDThin) {
+			return rank3{}, errors.New("factor: SVD of the measurement matrix did not converge; check the input for huge or degenerate values")
+		}
+		vals = svd.Values(nil)
+		u, v = new(mat.Dense), new(mat.Dense)
+		svd.UTo(u)
+		svd.VTo(v)
+		for i := k; i < len(vals); i++ {
+			res += vals[i] * vals[i]
 		}
 	}
-	res := 0.0
-	for k := 3; k < len(vals); k++ {
-		res += vals[k] * vals[k]
+	M := mat.NewDense(r, k, nil)
+	S := mat.NewDense(k, c, nil)
+	for j := 0; j < k; j++ {
+		s := math.Sqrt(vals[j])
+		for i := 0; i < r; i++ {
+			M.Set(i, j, u.At(i, j)*s)
+		}
+		for i := 0; i < c; i++ {
+			S.Set(j, i, v.At(i, j)*s)
+		}
 	}
 	return rank3{M: M, S: S, Values: vals, Resid2: res}, nil
 }
@@ -393,18 +453,79 @@ func orthoCost(rots [][3][3]float64, wc, S *mat.Dense) float64 {
 	return cost
 }
 
+// factorOrthographic is the orthographic Tomasi–Kanade factorization.
 func factorOrthographic(ctx context.Context, m *Measurements, opts Options) (*Reconstruction, error) {
+	return factorAffine(ctx, m, opts, Orthographic)
+}
+
+// checkComplete rejects measurements the complete-data models cannot use.
+func checkComplete(m *Measurements, model Model, minPoints int) error {
 	if !m.Complete() {
-		return nil, fmt.Errorf("factor: %w: the orthographic factorization needs every point in every frame; keep complete tracks only", ErrIncomplete)
+		return fmt.Errorf("factor: %w: the %s factorization needs every point in every frame; keep complete tracks only", ErrIncomplete, model)
 	}
 	nf, np := m.Dims()
-	if nf < MinFrames || np < MinPoints {
-		return nil, fmt.Errorf("factor: %w: %d frames × %d points; the model needs at least %d frames and %d points", ErrTooFew, nf, np, MinFrames, MinPoints)
+	if nf < MinFrames || np < minPoints {
+		return fmt.Errorf("factor: %w: %d frames × %d points; the %s model needs at least %d frames and %d points", ErrTooFew, nf, np, model, MinFrames, minPoints)
 	}
 	for _, v := range m.W.RawMatrix().Data {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			panic("factor: measurement matrix holds NaN or Inf")
 		}
+	}
+	return nil
+}
+
+// affineParams returns the number of free parameters d of an affine model
+// fitted to F frames and P points (per frame: rotation 3, image translation
+// 2, and the scale for the scaled models; per point 3; less the gauge: world
+// rotation 3 and origin 3, and the global scale for the scaled models).
+func affineParams(model Model, nf, np int) int {
+	if model == Orthographic {
+		return 5*nf + 3*np - 6
+	}
+	return 6*nf + 3*np - 7
+}
+
+// spectrum fills the spectral diagnostics of the rank-3 fit and returns the
+// noise level σ̂ used for the tests and whether σ₃ is inside the noise.
+func spectrum(d *Diagnostics, r3 rank3, nf, np int, dModel int, opts Options) (sigma float64, rankDeficient bool) {
+	n := 2 * nf * np
+	dAffine := 8*nf + 3*np - 12
+	d.Measurements, d.Parameters = n, dModel
+	nv := min(len(r3.Values), 10)
+	d.SingularValues = append([]float64(nil), r3.Values[:nv]...)
+	if len(r3.Values) > 3 && r3.Values[3] > 0 {
+		d.RankGap = r3.Values[2] / r3.Values[3]
+	} else {
+		d.RankGap = math.Inf(1)
+	}
+	d.AffineRMS = math.Sqrt(r3.Resid2 / float64(n))
+	sigma = opts.NoiseSigma
+	if sigma == 0 && n > dAffine {
+		sigma = math.Sqrt(r3.Resid2 / float64(n-dAffine))
+	}
+	d.NoiseSigma = sigma
+	if n > dModel {
+		d.ExpectedRMS = sigma * math.Sqrt(1-float64(dModel)/float64(n))
+	}
+	// Degeneracy of the spectrum: is σ₃ above what noise alone gives?
+	noiseEdge := sigma * (math.Sqrt(float64(2*nf)) + math.Sqrt(float64(np)))
+	rankDeficient = r3.Values[2] <= opts.PlanarRatio*noiseEdge || r3.Values[2] <= 1e-9*r3.Values[0]
+	return sigma, rankDeficient
+}
+
+// factorAffine runs an affine model (orthographic, scaled orthographic or
+// paraperspective) on complete measurements: centring, rank-3 SVD, the
+// model's metric upgrade, refinement, gauge fixing and diagnostics.
+func factorAffine(ctx context.Context, m *Measurements, opts Options, model Model) (*Reconstruction, error) {
+	if err := checkComplete(m, model, MinPoints); err != nil {
+		return nil, err
+	}
+	nf, np := m.Dims()
+	var intr Intrinsics
+	defaulted := false
+	if model == Paraperspective {
+		intr, defaulted = resolveIntrinsics(m, opts)
 	}
 	opts.progress("factorize", 0, 3)
 	wc, t := centre(m.W)
@@ -418,40 +539,120 @@ func factorOrthographic(ctx context.Context, m *Measurements, opts Options) (*Re
 	opts.progress("factorize", 1, 3)
 
 	n := 2 * nf * np
-	dAffine := 8*nf + 3*np - 12
-	dOrtho := 5*nf + 3*np - 6
-	rec := &Reconstruction{Model: Orthographic}
+	dModel := affineParams(model, nf, np)
+	rec := &Reconstruction{Model: model}
 	d := &rec.Diagnostics
 	d.MirrorAmbiguous = true
-	d.Measurements, d.Parameters = n, dOrtho
-	nv := len(r3.Values)
-	if nv > 10 {
-		nv = 10
-	}
-	d.SingularValues = append([]float64(nil), r3.Values[:nv]...)
-	if len(r3.Values) > 3 && r3.Values[3] > 0 {
-		d.RankGap = r3.Values[2] / r3.Values[3]
-	} else {
-		d.RankGap = math.Inf(1)
-	}
-	d.AffineRMS = math.Sqrt(r3.Resid2 / float64(n))
-	sigma := opts.NoiseSigma
-	if sigma == 0 && n > dAffine {
-		sigma = math.Sqrt(r3.Resid2 / float64(n-dAffine))
-	}
-	d.NoiseSigma = sigma
-	if n > dOrtho {
-		d.ExpectedRMS = sigma * math.Sqrt(1-float64(dOrtho)/float64(n))
-	}
-
-	// Degeneracy of the spectrum: is σ₃ above what noise alone gives?
-	noiseEdge := sigma * (math.Sqrt(float64(2*nf)) + math.Sqrt(float64(np)))
-	rankDeficient := r3.Values[2] <= opts.PlanarRatio*noiseEdge || r3.Values[2] <= 1e-9*r3.Values[0]
+	sigma, rankDeficient := spectrum(d, r3, nf, np, dModel, opts)
 	if rankDeficient && similarityOnly(wc, sigma) {
 		return nil, fmt.Errorf("factor: %w: every view is a 2D similarity of the first (the part did not turn out of the image plane); capture views with at least %.1f° of rotation", ErrLittleRotation, opts.MinRotationDeg)
 	}
 
-	L, cond, err := metricL(r3.M)
+	var cams []affineCam
+	switch model {
+	case Orthographic:
+		cams, err = upgradeOrthographic(r3.M, d)
+	case ScaledOrthographic:
+		cams, err = upgradeScaled(r3.M, nil, d)
+	case Paraperspective:
+		cams, err = upgradeScaled(r3.M, &paraFrame{intr: intr, t: t}, d)
+	}
+	if err != nil {
+		return nil, err
+	}
+	S := mat.NewDense(3, np, nil)
+	conv, err := refineAffine(ctx, wc, cams, S, model != Orthographic, opts)
+	if err != nil {
+		return nil, err
+	}
+	d.InitialRMS = conv.InitialRMS
+	d.Iterations = conv.Iterations
+	d.Convergence = append(d.Convergence, conv)
+	opts.progress("factorize", 2, 3)
+
+	unit := 1.0
+	if model == Paraperspective {
+		unit = intr.Fx
+	}
+	gaugeAffine(cams, S, model != Orthographic, unit)
+	rots := make([][3][3]float64, nf)
+	for i := range cams {
+		rots[i] = cams[i].R
+	}
+	rec.Cameras = make([]Camera, nf)
+	for i, c := range cams {
+		cam := Camera{Frame: i, R: c.R, T: [3]float64{t[2*i], t[2*i+1], 0}, Scale: c.c}
+		if model == Paraperspective {
+			cam.Scale = c.c * intr.Fx
+			z := intr.Fx / cam.Scale
+			x, y := intr.Normalize(t[2*i], t[2*i+1])
+			cam.T = [3]float64{x * z, y * z, z}
+		}
+		if m.Frames != nil {
+			cam.Frame = m.Frames[i]
+		}
+		rec.Cameras[i] = cam
+	}
+	if model == Paraperspective {
+		in := intr
+		rec.Intrinsics = &in
+	}
+	rec.Points = makePoints(m, S)
+	fillResiduals(rec, m)
+	_ = n
+	opts.progress("factorize", 3, 3)
+
+	spread := rotationSpreadDeg(rots)
+	d.RotationSpreadDeg = spread
+	if err := checkSpread(d, spread, rankDeficient, opts); err != nil {
+		return nil, err
+	}
+	if defaulted {
+		d.Warn(WarnDefaultIntrinsics, fmt.Sprintf("no intrinsics given: the %s model assumed the principal point (%.1f, %.1f) px and the focal length %.1f px (%.1f × the larger image side); give --intrinsics for reliable depth", model, intr.Cx, intr.Cy, intr.Fx, DefaultFocalFactor))
+	}
+	addConvergenceWarnings(d)
+	addWarnings(rec, rankDeficient, opts)
+	return rec, nil
+}
+
+// checkSpread fails when the recovered views span too little rotation. A
+// near-planar scene (rankDeficient) whose views are not mere similarities
+// is exempt: there the upgrade itself is unreliable and the planar-scene
+// warning says so. After a metric-upgrade fallback a collapsed spread
+// means the upgrade failed, not that the part did not turn.
+func checkSpread(d *Diagnostics, spread float64, rankDeficient bool, opts Options) error {
+	if spread >= opts.MinRotationDeg || rankDeficient {
+		return nil
+	}
+	if d.MetricFallback {
+		return fmt.Errorf("factor: %w: the metric constraints have no positive-definite solution and the views collapse to %.2f° of rotation; the camera model does not fit these tracks (try another model) or outliers remain", ErrMetricUpgrade, spread)
+	}
+	return fmt.Errorf("factor: %w: the views span %.2f° (at least %.1f° needed to recover depth); capture a wider arc", ErrLittleRotation, spread, opts.MinRotationDeg)
+}
+
+// makePoints turns the 3×P structure into Points.
+func makePoints(m *Measurements, S *mat.Dense) []Point {
+	nf, np := m.Dims()
+	pts := make([]Point, np)
+	for j := 0; j < np; j++ {
+		p := Point{Track: j, X: [3]float64{S.At(0, j), S.At(1, j), S.At(2, j)}}
+		for i := 0; i < nf; i++ {
+			if m.Observed(i, j) {
+				p.Views++
+			}
+		}
+		if m.Tracks != nil {
+			p.Track = m.Tracks[j]
+		}
+		pts[j] = p
+	}
+	return pts
+}
+
+// upgradeOrthographic is the Tomasi–Kanade metric upgrade: L from metricL,
+// Q = sqrtPD(L), each camera the polar factor of its rows of M̂Q.
+func upgradeOrthographic(Mh *mat.Dense, d *Diagnostics) ([]affineCam, error) {
+	L, cond, err := metricL(Mh)
 	if err != nil {
 		return nil, err
 	}
@@ -462,10 +663,10 @@ func factorOrthographic(ctx context.Context, m *Measurements, opts Options) (*Re
 	}
 	d.MetricFallback = fallback
 	var M mat.Dense
-	M.Mul(r3.M, Q)
-
-	rots := make([][3][3]float64, nf)
-	for i := range rots {
+	M.Mul(Mh, Q)
+	nf := M.RawMatrix().Rows / 2
+	cams := make([]affineCam, nf)
+	for i := range cams {
 		a := [2][3]float64{
 			{M.At(2*i, 0), M.At(2*i, 1), M.At(2*i, 2)},
 			{M.At(2*i+1, 0), M.At(2*i+1, 1), M.At(2*i+1, 2)},
@@ -474,76 +675,305 @@ func factorOrthographic(ctx context.Context, m *Measurements, opts Options) (*Re
 		if !ok {
 			return nil, fmt.Errorf("factor: %w: camera %d has rank < 2 after the upgrade", ErrMetricUpgrade, i)
 		}
-		rots[i] = rotationFromRows(r)
+		cams[i] = affineCam{R: rotationFromRows(r), E: [2][3]float64{{1, 0, 0}, {0, 1, 0}}, c: 1}
 	}
-	// Rotate the world so camera 0 is the identity: R_f ← R_f R_0ᵀ.
-	R0 := rots[0]
-	for i := range rots {
-		rots[i] = mulABt(rots[i], R0)
+	return cams, nil
+}
+
+// affineCam is one affine camera: its 2×3 projection block is P = c·E·R,
+// with E fixed by the model ([I 0] for the (scaled) orthographic model,
+// D·[1 0 −x; 0 1 −y] for paraperspective), c the free scale (1 for the
+// orthographic model) and R the world→camera rotation.
+type affineCam struct {
+	R [3][3]float64
+	E [2][3]float64
+	c float64
+}
+
+// er returns E·R (2×3).
+func (a *affineCam) er() [2][3]float64 {
+	var P [2][3]float64
+	for r := 0; r < 2; r++ {
+		for k := 0; k < 3; k++ {
+			P[r][k] = a.E[r][0]*a.R[0][k] + a.E[r][1]*a.R[1][k] + a.E[r][2]*a.R[2][k]
+		}
 	}
-	S := mat.NewDense(3, np, nil)
-	if err := orthoStructure(rots, wc, S); err != nil {
-		return nil, err
+	return P
+}
+
+// block returns P = c·E·R.
+func (a *affineCam) block() [2][3]float64 {
+	P := a.er()
+	for r := range P {
+		for k := range P[r] {
+			P[r][k] *= a.c
+		}
 	}
-	cost := orthoCost(rots, wc, S)
-	d.InitialRMS = math.Sqrt(cost / float64(n))
-	opts.progress("factorize", 2, 3)
-	iters := 0
+	return P
+}
+
+func stackBlocks(cams []affineCam) *mat.Dense {
+	A := mat.NewDense(2*len(cams), 3, nil)
+	for i := range cams {
+		P := cams[i].block()
+		A.SetRow(2*i, P[0][:])
+		A.SetRow(2*i+1, P[1][:])
+	}
+	return A
+}
+
+// affineStructure solves S = (AᵀA)⁻¹ Aᵀ W̃ (A the stacked blocks), the
+// least-squares structure given the cameras.
+func affineStructure(cams []affineCam, wc, S *mat.Dense) error {
+	A := stackBlocks(cams)
+	var H mat.Dense
+	H.Mul(A.T(), A)
+	var AtW mat.Dense
+	AtW.Mul(A.T(), wc)
+	var chol mat.Cholesky
+	if !chol.Factorize(mat.NewSymDense(3, H.RawMatrix().Data)) {
+		return fmt.Errorf("factor: %w: the viewing directions are all parallel", ErrLittleRotation)
+	}
+	return chol.SolveTo(S, &AtW)
+}
+
+// affineCost is ‖W̃ − A S‖²_F.
+func affineCost(cams []affineCam, wc, S *mat.Dense) float64 {
+	r, c := wc.Dims()
+	s0, s1, s2 := S.RawRowView(0), S.RawRowView(1), S.RawRowView(2)
+	cost := 0.0
+	for i := 0; i < r; i++ {
+		P := cams[i/2].block()[i%2]
+		row := wc.RawRowView(i)
+		for j := 0; j < c; j++ {
+			d := row[j] - (P[0]*s0[j] + P[1]*s1[j] + P[2]*s2[j])
+			cost += d * d
+		}
+	}
+	return cost
+}
+
+// affineCameras updates every camera given the structure: Gauss–Newton
+// steps on R (rotationStepB) and, when freeScale, the closed-form scale
+// c = ⟨C, E R⟩ / tr(E R G Rᵀ Eᵀ), with C = W̃_f Sᵀ and G = S Sᵀ.
+func affineCameras(cams []affineCam, wc, S *mat.Dense, freeScale bool) {
+	var WS mat.Dense
+	WS.Mul(wc, S.T())
+	var Gd mat.Dense
+	Gd.Mul(S, S.T())
+	var G [3][3]float64
+	for a := 0; a < 3; a++ {
+		for b := 0; b < 3; b++ {
+			G[a][b] = Gd.At(a, b)
+		}
+	}
+	for i := range cams {
+		C := [2][3]float64{
+			{WS.At(2*i, 0), WS.At(2*i, 1), WS.At(2*i, 2)},
+			{WS.At(2*i+1, 0), WS.At(2*i+1, 1), WS.At(2*i+1, 2)},
+		}
+		cam := &cams[i]
+		for step := 0; step < 3; step++ {
+			var B [2][3]float64 // c·E
+			for r := 0; r < 2; r++ {
+				for k := 0; k < 3; k++ {
+					B[r][k] = cam.c * cam.E[r][k]
+				}
+			}
+			moved := rotationStepB(&cam.R, B, C, G)
+			if freeScale {
+				P := cam.er()
+				num, den := 0.0, 0.0
+				for r := 0; r < 2; r++ {
+					num += dot3(C[r], P[r])
+					gp := [3]float64{dot3(G[0], P[r]), dot3(G[1], P[r]), dot3(G[2], P[r])}
+					den += dot3(P[r], gp)
+				}
+				if den > 0 && num > 0 {
+					cam.c = num / den
+				}
+			}
+			if !moved {
+				break
+			}
+		}
+	}
+}
+
+// rotationStepB takes one Gauss–Newton step on R ← R·exp([δ]×) for
+// min Σ_p ‖w_p − B R X_p‖² (B a fixed 2×3 matrix), given C = Σ w_p X_pᵀ and
+// G = Σ X_p X_pᵀ. With J_p = B R [X_p]×, K = RᵀBᵀBR, M = RᵀBᵀ and the
+// skew matrices S_i = [e_i]×, the sums over points reduce to
+//
+//	JᵀJ = −Σ_ij G_ij S_i K S_j,   δ = (JᵀJ)⁻¹ vex(K G − M C),
+//
+// vex(N) = (N₁₂ − N₂₁, N₂₀ − N₀₂, N₀₁ − N₁₀) (the sum of cross products
+// Σ a_p × b_p for N = Σ a_p b_pᵀ). For B = [I 0] this is rotationGNStep.
+// It reports whether the step was large enough to be worth another.
+func rotationStepB(R *[3][3]float64, B, C [2][3]float64, G [3][3]float64) bool {
+	var BR [2][3]float64
+	for r := 0; r < 2; r++ {
+		for k := 0; k < 3; k++ {
+			BR[r][k] = B[r][0]*R[0][k] + B[r][1]*R[1][k] + B[r][2]*R[2][k]
+		}
+	}
+	var K, MC [3][3]float64
+	for a := 0; a < 3; a++ {
+		for b := 0; b < 3; b++ {
+			K[a][b] = BR[0][a]*BR[0][b] + BR[1][a]*BR[1][b]
+			MC[a][b] = BR[0][a]*C[0][b] + BR[1][a]*C[1][b]
+		}
+	}
+	KG := mul33(K, G)
+	N := [3][3]float64{}
+	for a := 0; a < 3; a++ {
+		for b := 0; b < 3; b++ {
+			N[a][b] = KG[a][b] - MC[a][b]
+		}
+	}
+	g := [3]float64{N[1][2] - N[2][1], N[2][0] - N[0][2], N[0][1] - N[1][0]}
+	var H [3][3]float64
+	for i := 0; i < 3; i++ {
+		var ei [3]float64
+		ei[i] = 1
+		Si := skew(ei)
+		SiK := mul33(Si, K)
+		for j := 0; j < 3; j++ {
+			if G[i][j] == 0 {
+				continue
+			}
+			var ej [3]float64
+			ej[j] = 1
+			T := mul33(SiK, skew(ej))
+			for a := 0; a < 3; a++ {
+				for b := 0; b < 3; b++ {
+					H[a][b] -= G[i][j] * T[a][b]
+				}
+			}
+		}
+	}
+	dlt, ok := solve33(H, g)
+	if !ok {
+		return false
+	}
+	*R = mul33(*R, expSO3(dlt))
+	return dot3(dlt, dlt) > 1e-30
+}
+
+// refineAffine sets the world gauge (camera 0 = identity), solves the
+// structure and refines cameras and structure by block-coordinate descent;
+// every step lowers the cost ‖W̃ − A S‖²_F. S (3×P) receives the structure.
+func refineAffine(ctx context.Context, wc *mat.Dense, cams []affineCam, S *mat.Dense, freeScale bool, opts Options) (Convergence, error) {
+	R0 := cams[0].R
+	for i := range cams {
+		cams[i].R = mulABt(cams[i].R, R0)
+	}
+	n := float64(wc.RawMatrix().Rows * wc.RawMatrix().Cols)
+	conv := Convergence{Stage: "refine", Tolerance: opts.Tolerance, Termination: StopConverged}
+	if err := affineStructure(cams, wc, S); err != nil {
+		return conv, err
+	}
+	cost := affineCost(cams, wc, S)
+	conv.InitialRMS = math.Sqrt(cost / n)
+	if opts.Iterations < 0 {
+		conv.FinalRMS = conv.InitialRMS
+		return conv, nil
+	}
+	conv.Termination = StopIterationLimit
 	for it := 0; it < opts.Iterations; it++ {
 		if err := checkCtx(ctx); err != nil {
-			return nil, err
+			return conv, err
 		}
-		orthoCameras(rots, wc, S)
-		if err := orthoStructure(rots, wc, S); err != nil {
-			return nil, err
+		saved := append([]affineCam(nil), cams...)
+		savedS := mat.DenseCopyOf(S)
+		affineCameras(cams, wc, S, freeScale)
+		if err := affineStructure(cams, wc, S); err != nil {
+			return conv, err
 		}
-		c := orthoCost(rots, wc, S)
-		iters++
+		c := affineCost(cams, wc, S)
+		conv.Iterations++
+		change := 0.0
+		if cost > 0 {
+			change = (cost - c) / cost
+		}
+		conv.Changes = append(conv.Changes, change)
+		if c > cost {
+			// Rounding at the optimum (a Gauss–Newton step is not a
+			// guaranteed descent): keep the better iterate.
+			copy(cams, saved)
+			S.Copy(savedS)
+			conv.Termination = StopConverged
+			if change < -1e-9 {
+				conv.Termination = StopStalled
+			}
+			break
+		}
 		if cost-c <= opts.Tolerance*cost {
-			cost = math.Min(cost, c)
+			cost = c
+			conv.Termination = StopConverged
 			break
 		}
 		cost = c
 	}
-	d.Iterations = iters
-	// Re-anchor the gauge after refinement: camera 0 is the identity.
-	R0 = rots[0]
-	for i := range rots {
-		rots[i] = mulABt(rots[i], R0)
+	conv.FinalRMS = math.Sqrt(cost / n)
+	return conv, nil
+}
+
+// gaugeAffine re-anchors the world after refinement, camera 0 = identity
+// (R_f ← R_f R₀ᵀ, S ← R₀ S), and, for the scaled models, fixes the global
+// scale so that the cameras' scales unit·c_f (px per world unit: unit = Fx
+// for paraperspective, 1 otherwise) average 1 (c_f ← c_f/μ, S ← μS).
+func gaugeAffine(cams []affineCam, S *mat.Dense, scaled bool, unit float64) {
+	R0 := cams[0].R
+	for i := range cams {
+		cams[i].R = mulABt(cams[i].R, R0)
 	}
-	var S0 mat.Dense
-	S0.Mul(mat.NewDense(3, 3, []float64{
+	R0m := mat.NewDense(3, 3, []float64{
 		R0[0][0], R0[0][1], R0[0][2],
 		R0[1][0], R0[1][1], R0[1][2],
-		R0[2][0], R0[2][1], R0[2][2]}), S)
-	S = &S0
-
-	rec.Cameras = make([]Camera, nf)
-	for i := range rots {
-		cam := Camera{Frame: i, R: rots[i], T: [3]float64{t[2*i], t[2*i+1], 0}, Scale: 1}
-		if m.Frames != nil {
-			cam.Frame = m.Frames[i]
+		R0[2][0], R0[2][1], R0[2][2]})
+	var S0 mat.Dense
+	S0.Mul(R0m, S)
+	S.Copy(&S0)
+	if scaled {
+		mu := 0.0
+		for _, c := range cams {
+			mu += c.c
 		}
-		rec.Cameras[i] = cam
-	}
-	rec.Points = make([]Point, np)
-	for j := 0; j < np; j++ {
-		p := Point{Track: j, X: [3]float64{S.At(0, j), S.At(1, j), S.At(2, j)}, Views: nf}
-		if m.Tracks != nil {
-			p.Track = m.Tracks[j]
+		mu *= unit / float64(len(cams))
+		if mu > 0 {
+			for i := range cams {
+				cams[i].c /= mu
+			}
+			S.Scale(mu, S)
 		}
-		rec.Points[j] = p
 	}
-	fillResiduals(rec, m)
-	opts.progress("factorize", 3, 3)
+}
 
-	spread := rotationSpreadDeg(rots)
-	d.RotationSpreadDeg = spread
-	if spread < opts.MinRotationDeg {
-		return nil, fmt.Errorf("factor: %w: the views span %.2f° (at least %.1f° needed to recover depth); capture a wider arc", ErrLittleRotation, spread, opts.MinRotationDeg)
+// addConvergenceWarnings warns about iterative stages that did not meet
+// their tolerance.
+func addConvergenceWarnings(d *Diagnostics) {
+	refined := false
+	if k := len(d.Convergence); k > 0 && d.Convergence[k-1].Stage == "refine" && d.Convergence[k-1].Termination == StopConverged {
+		// An initialisation that stopped early is harmless once the
+		// model's own least-squares refinement converged after it.
+		refined = true
 	}
-	addWarnings(rec, rankDeficient, opts)
-	return rec, nil
+	for _, c := range d.Convergence {
+		if refined && c.Stage != "refine" {
+			continue
+		}
+		if c.Termination == StopConverged || c.Stage == "refine" && c.Termination == StopIterationLimit && c.FinalRMS <= c.InitialRMS {
+			// A refinement that hit its bound while still improving is
+			// not a trust problem: its result is never worse than its start.
+			continue
+		}
+		last := math.NaN()
+		if len(c.Changes) > 0 {
+			last = c.Changes[len(c.Changes)-1]
+		}
+		d.Warn(WarnNotConverged, fmt.Sprintf("the %s stage stopped (%s) after %d iterations with a change of %.3g per iteration (tolerance %.3g): the result may be inaccurate; raise the iteration limit or check the camera model", c.Stage, c.Termination, c.Iterations, last, c.Tolerance))
+	}
 }
 
 // mulABt returns A·Bᵀ for 3×3 matrices.
@@ -611,7 +1041,7 @@ func similarityOnly(wc *mat.Dense, sigma float64) bool {
 }
 
 // fillResiduals computes per-camera, per-point and overall RMS residuals of
-// the affine projection over the observed entries.
+// the model's projection (Reconstruction.Project) over the observed entries.
 func fillResiduals(rec *Reconstruction, m *Measurements) {
 	nf, np := m.Dims()
 	camSS := make([]float64, nf)
@@ -626,9 +1056,7 @@ func fillResiduals(rec *Reconstruction, m *Measurements) {
 			if !m.Observed(i, j) {
 				continue
 			}
-			X := rec.Points[j].X
-			px := cam.Scale*dot3(cam.R[0], X) + cam.T[0]
-			py := cam.Scale*dot3(cam.R[1], X) + cam.T[1]
+			px, py := rec.project(cam, rec.Points[j].X)
 			dx, dy := xr[j]-px, yr[j]-py
 			e := dx*dx + dy*dy
 			camSS[i] += e
