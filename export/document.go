@@ -79,6 +79,9 @@ type Point struct {
 	RGB   [3]uint8   `json:"rgb"`
 	Views int        `json:"views"`
 	RMSPx float64    `json:"rms_px"`
+	// Sigma is the point's standard deviation from the refinement's
+	// covariance, √(trace Σ/3), in Units; omitted when unknown.
+	Sigma *float64 `json:"sigma,omitempty"`
 }
 
 // Warning is a diagnostic with a stable code (the factor.Warn* constants)
@@ -111,6 +114,20 @@ type Diagnostics struct {
 	Tracks *TrackCounts `json:"tracks,omitempty"`
 	// TimingS is wall-clock seconds by stage name; omitted when empty.
 	TimingS map[string]float64 `json:"timing_s,omitempty"`
+
+	// Extra reports of later stages, each a JSON object written by the
+	// stage (finite numbers only) and omitted when the stage did not run:
+	// Refinement is the bundle adjustment summary, Turntable the
+	// turntable axis and angles, Mirror the depth-order decision, Scale
+	// the metric scale, MissingData the missing-data solver's report and
+	// Model the candidates of automatic model choice and the convergence
+	// of iterative models.
+	Refinement  json.RawMessage `json:"refinement,omitempty"`
+	Turntable   json.RawMessage `json:"turntable,omitempty"`
+	Mirror      json.RawMessage `json:"mirror,omitempty"`
+	Scale       json.RawMessage `json:"scale,omitempty"`
+	MissingData json.RawMessage `json:"missing_data,omitempty"`
+	Model       json.RawMessage `json:"model,omitempty"`
 }
 
 // TrackCounts summarise tracking.

@@ -8,7 +8,7 @@ package factor
 // verdict; every other code, known or not, does.
 func Informational(code string) bool {
 	switch code {
-	case WarnMirror, WarnIncompleteDropped, WarnOutliersRejected:
+	case WarnMirror, WarnIncompleteDropped, WarnOutliersRejected, "depth-order-by-convention":
 		return true
 	}
 	return false

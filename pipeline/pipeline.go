@@ -38,6 +38,9 @@ type Config struct {
 	// Missing configures the missing-data solver, used when tracks are
 	// incomplete and the model allows it.
 	Missing factor.MissingOptions
+	// Refine configures bundle adjustment, the turntable fit and the
+	// metric scale after the factorization.
+	Refine RefineConfig
 	// MaskFile is an image of the frame size; corners are detected only
 	// where it is bright. ROI, when its width and height are not zero, is
 	// a rectangle X, Y, W, H (px) outside which no corners are detected.
@@ -78,6 +81,9 @@ type Result struct {
 	// Missing is the missing-data solver's report, nil when the complete
 	// block was used.
 	Missing *factor.MissingReport
+	// Refinement reports bundle adjustment, the turntable fit and the
+	// scale; nil when the factorization failed before it.
+	Refinement *Refinement
 	Doc     *export.Document
 	Files   []string           // files written, relative to Config.Out
 	Timing  map[string]float64 // seconds by stage
@@ -102,6 +108,9 @@ func Run(ctx context.Context, cfg Config) (*Result, error) {
 		return nil, err
 	}
 	res.Timing["track"] = trackTime
+	if err := ctx.Err(); err != nil {
+		return nil, err // interrupted: write nothing
+	}
 	if cfg.Out != "" {
 		if err := Write(res, cfg); err != nil {
 			return nil, err
@@ -238,6 +247,9 @@ func classify(err error) error {
 func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, error) {
 	res := &Result{Set: set, Timing: map[string]float64{}}
 	t0 := time.Now()
+	if cfg.Factor.Progress == nil {
+		cfg.Factor.Progress = cfg.Progress // long solves report too
+	}
 	if cfg.Factor.ImageWidth == 0 && cfg.Factor.ImageHeight == 0 {
 		cfg.Factor.ImageWidth, cfg.Factor.ImageHeight = set.Width, set.Height
 	}
@@ -248,6 +260,9 @@ func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, erro
 			return nil, err
 		}
 		res.Timing["factor"] = time.Since(t0).Seconds()
+		if err := refine(ctx, res, cfg); err != nil {
+			return nil, err
+		}
 		res.Doc = buildDocument(res, cfg)
 		return res, nil
 	}
@@ -282,6 +297,9 @@ func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, erro
 			rec.Model, len(w.Tracks), w.First, w.Last, w.Frames(), len(set.Frames), len(set.Tracks)-len(w.Tracks)))
 	}
 	res.Rec = rec
+	if err := refine(ctx, res, cfg); err != nil {
+		return nil, err
+	}
 	res.Doc = buildDocument(res, cfg)
 	return res, nil
 }
@@ -305,6 +323,7 @@ func buildDocument(res *Result, cfg Config) *export.Document {
 	}
 	doc.Diagnostics.Tracks = &export.TrackCounts{Detected: res.Set.Stats.Detected, Kept: len(res.Window.Tracks), DroppedByReason: dropped}
 	doc.Diagnostics.TimingS = res.Timing
+	addStageReports(doc, res)
 	return doc
 }
 
@@ -394,8 +413,9 @@ func CheckOut(dir string) error {
 	return nil
 }
 
-// Write writes reconstruction.json, points.ply, cameras.ply and tracks.csv
-// into cfg.Out through a stage: all files appear together or none does.
+// Write writes reconstruction.json, points.ply, cameras.ply, tracks.csv and
+// report.html into cfg.Out through a stage: all files appear together or
+// none does.
 func Write(res *Result, cfg Config) (err error) {
 	st, err := export.OpenStage(cfg.Out, cfg.Force)
 	if err != nil {
@@ -421,6 +441,7 @@ func Write(res *Result, cfg Config) (err error) {
 			return export.WriteCamerasPLY(w, res.Doc, export.CamerasPLYOptions{ASCII: cfg.PLYASCII})
 		}},
 		{"tracks.csv", func(w io.Writer) error { return export.WriteTracksCSV(w, used) }},
+		{export.FileReport, func(w io.Writer) error { return writeReport(w, res, cfg) }},
 	}
 	for _, f := range files {
 		w, err := st.Create(f.name)

@@ -27,7 +27,7 @@ func demoCommand() *cli.Command {
 	o := &demoOptions{}
 	flags := []cli.Flag{
 		&cli.IntFlag{Name: "frames", Usage: "frames to render", Value: 24, Destination: &o.frames},
-		&cli.Float64Flag{Name: "step-deg", Usage: "turntable step between frames, degrees", Value: 1, Destination: &o.stepDeg},
+		&cli.Float64Flag{Name: "scene-step-deg", Usage: "turntable step between rendered frames, degrees", Value: 1, Destination: &o.stepDeg},
 		&cli.Float64Flag{Name: "elevation", Usage: "camera elevation above the turntable plane, degrees", Value: 20, Destination: &o.elevation},
 		&cli.Float64Flag{Name: "image-noise", Usage: "Gaussian image noise, grey levels", Value: 1, Destination: &o.noise},
 		&cli.Int64Flag{Name: "seed", Usage: "texture and noise seed", Value: 1, Destination: &o.seed},
@@ -36,6 +36,7 @@ func demoCommand() *cli.Command {
 	flags = append(flags, o.common.flags()...)
 	flags = append(flags, o.trackF.flags()...)
 	flags = append(flags, o.factorF.flags()...)
+	flags = append(flags, o.refineF.flags()...)
 	flags = append(flags, o.out.flags()...)
 	return &cli.Command{
 		Name:  "demo",
@@ -85,10 +86,10 @@ func demoCommand() *cli.Command {
 				return err
 			}
 			cfg.Force = true // the frames folder now lives in OUT
-			cfg.Settings = map[string]any{"demo": map[string]any{
+			cfg.Settings["demo"] = (map[string]any{
 				"frames": o.frames, "step_deg": o.stepDeg, "elevation_deg": o.elevation,
 				"image_noise": o.noise, "seed": o.seed, "backdrop": o.backdrop, "projection": "orthographic",
-			}}
+			})
 			res, err := pipeline.Run(c.Context, cfg)
 			if err != nil {
 				return err
@@ -102,6 +103,11 @@ func demoCommand() *cli.Command {
 				printSummary(w, res, cfg.Out)
 				fmt.Fprintf(w, "ground truth (the rendered scene):\n")
 				fmt.Fprintf(w, "  rotation  median %.3f°, max %.3f° over %d view pairs (relative rotations)\n", rep.Rotation.MedianDeg, rep.Rotation.MaxDeg, rep.Rotation.Pairs)
+				order := "as in the scene"
+				if rep.Rotation.Mirrored {
+					order = "reversed (the mirror image of the scene)"
+				}
+				fmt.Fprintf(w, "  depth     %s\n", order)
 				fmt.Fprintf(w, "  structure RMS %.3f mm = %.3f %% of the part's %.1f mm diagonal, over %d points (%d off the part), after similarity alignment\n",
 					rep.StructureRMS, rep.StructurePct, scene.Diagonal(), rep.Points, rep.OffObject)
 			}

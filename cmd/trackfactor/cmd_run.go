@@ -3,13 +3,14 @@ package main
 import (
 	"fmt"
 	"io"
+	"math"
 	"sort"
 	"strings"
 
 	"github.com/urfave/cli/v2"
 
-	"trackfactor/factor"
 	"trackfactor/pipeline"
+	"trackfactor/report"
 )
 
 // runOptions are the flags of `trackfactor run`.
@@ -17,6 +18,7 @@ type runOptions struct {
 	common  commonFlags
 	trackF  trackFlags
 	factorF factorFlags
+	refineF refineFlags
 	out     outFlags
 }
 
@@ -24,6 +26,7 @@ func runCommand() *cli.Command {
 	o := &runOptions{}
 	flags := append(o.common.flags(), o.trackF.flags()...)
 	flags = append(flags, o.factorF.flags()...)
+	flags = append(flags, o.refineF.flags()...)
 	flags = append(flags, o.out.flags()...)
 	return &cli.Command{
 		Name:      "run",
@@ -65,6 +68,8 @@ func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, erro
 		PLYASCII: o.out.plyASCII,
 		Producer: producer(c),
 		Progress: o.common.progress(c.App.ErrWriter),
+		// Where the flag values came from (config.go).
+		Settings: map[string]any{"config": configOf(c).asSettings()},
 	}
 	var err error
 	if cfg.Range, err = o.trackF.rangeOf(); err != nil {
@@ -74,6 +79,9 @@ func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, erro
 		return cfg, err
 	}
 	if cfg.Factor, err = o.factorF.options(); err != nil {
+		return cfg, err
+	}
+	if cfg.Refine, err = o.refineF.config(); err != nil {
 		return cfg, err
 	}
 	if cfg.MaskFile, cfg.ROI, err = o.trackF.maskSpec(); err != nil {
@@ -107,13 +115,34 @@ func printSummary(w io.Writer, res *pipeline.Result, out string) {
 	fmt.Fprintf(w, "model       %s\n", rec.Model)
 	fmt.Fprintf(w, "residual    %.3f px RMS (expected from noise %.3f px; noise σ ≈ %.3f px)\n", d.RMS, d.ExpectedRMS, d.NoiseSigma)
 	fmt.Fprintf(w, "rotation    views span %.1f°; rank gap σ3/σ4 = %.3g\n", d.RotationSpreadDeg, d.RankGap)
-	verdict := "good"
-	for _, wn := range d.Warnings {
-		if !factor.Informational(wn.Code) {
-			verdict = "usable with warnings"
+	if r := res.Refinement; r != nil {
+		switch {
+		case r.Summary != nil:
+			s := r.Summary
+			fmt.Fprintf(w, "refinement  %s bundle adjustment: RMS %.3f → %.3f px in %d iterations (%s)\n", s.Motion, s.InitialRMS, s.FinalRMS, s.Iterations, s.Termination)
+		case r.Skipped != "":
+			fmt.Fprintf(w, "refinement  skipped: %s\n", r.Skipped)
+		}
+		if m := r.Mirror; m != nil {
+			fmt.Fprintf(w, "depth order %s (cost ratio %.3g)\n", m.Choice, m.CostRatio)
+		}
+		if t := r.Turntable; t != nil {
+			fmt.Fprintf(w, "turntable   step %.3f° ± %.3f° over %d frames (span %.2f°), camera elevation %.2f°, off-axis %.3f° RMS", math.Abs(t.MeanStepDeg), t.StepStdDeg, len(t.AnglesDeg), math.Abs(t.SpanDeg), t.ElevationDeg, t.OffAxisRMSDeg)
+			if t.Closure.Kind != "none" && t.Closure.Kind != "" {
+				fmt.Fprintf(w, "; closure %s %.3f°", t.Closure.Kind, t.Closure.ErrorDeg)
+			}
+			fmt.Fprintln(w)
+		}
+		if r.Scale != nil {
+			fmt.Fprintf(w, "units       %s (scale factor %.6g", r.Units, r.Scale.Factor)
+			if r.Scale.RelativeSigma > 0 {
+				fmt.Fprintf(w, " ± %.2g %%", 100*r.Scale.RelativeSigma)
+			}
+			fmt.Fprintln(w, ")")
 		}
 	}
-	fmt.Fprintf(w, "verdict     %s\n", verdict)
+	// The same rule as the HTML report (report.Judge).
+	fmt.Fprintf(w, "verdict     %s\n", report.Judge(res.Doc).Verdict)
 	for _, wn := range d.Warnings {
 		fmt.Fprintf(w, "warning     [%s] %s\n", wn.Code, wn.Message)
 	}

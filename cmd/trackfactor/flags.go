@@ -2,13 +2,10 @@ package main
 
 import (
 	"fmt"
-	"io"
 	"math"
 	"os"
 	"strconv"
 	"strings"
-	"sync"
-	"time"
 
 	"github.com/urfave/cli/v2"
 
@@ -22,32 +19,15 @@ import (
 // the packages' own WithDefaults, so help and behaviour cannot disagree.
 
 type commonFlags struct {
-	quiet bool
+	quiet     bool
+	logFormat string
+	sink      *progressSink // set by progress (progress.go)
 }
 
 func (f *commonFlags) flags() []cli.Flag {
 	return []cli.Flag{
 		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "print nothing but errors", Destination: &f.quiet},
-	}
-}
-
-// progress returns a callback printing one plain line per stage step at
-// most every second (and at each stage's end) on w, or nil when quiet.
-func (f *commonFlags) progress(w io.Writer) func(stage string, done, total int) {
-	if f.quiet {
-		return nil
-	}
-	var mu sync.Mutex
-	last := map[string]time.Time{}
-	return func(stage string, done, total int) {
-		mu.Lock()
-		defer mu.Unlock()
-		now := time.Now()
-		if done < total && now.Sub(last[stage]) < time.Second {
-			return
-		}
-		last[stage] = now
-		fmt.Fprintf(w, "%-9s %d/%d\n", stage, done, total)
+		&cli.StringFlag{Name: "log-format", Usage: "progress on stderr: " + logText + " (a bar on a terminal, plain lines otherwise) or " + logJSON + " (one object per line)", Value: logText, Destination: &f.logFormat},
 	}
 }
 

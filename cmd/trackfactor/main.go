@@ -56,16 +56,18 @@ func main() {
 func run(args []string, stdout, stderr io.Writer) int {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	app := newApp(stdout, stderr)
+	ew := &lineWriter{w: stderr} // an error after a progress bar starts a new line
+	app := newApp(stdout, ew)
 	err := app.RunContext(ctx, args)
 	code := exitCode(err)
 	if err != nil {
+		ew.endLine()
 		msg := oneLine(err.Error())
 		if !strings.HasPrefix(msg, "trackfactor") {
 			msg = "trackfactor: " + msg
 		}
 		fmt.Fprintln(stderr, msg)
-		if code == exitInterrupted {
+		if code == exitInterrupted && !strings.Contains(msg, "interrupted") {
 			fmt.Fprintln(stderr, "trackfactor: interrupted; no result files were written and temporary files were removed")
 		}
 	}
@@ -122,8 +124,11 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 			trackCommand(),
 			factorCommand(),
 			validateCommand(),
+			reportCommand(),
+			batchCommand(),
 		},
 	}
+	setupConfig(app)
 	return app
 }
 

@@ -1,0 +1,159 @@
+package bundle
+
+import (
+	"context"
+	"math"
+	"math/rand/v2"
+	"os"
+	"testing"
+	"time"
+
+	"gonum.org/v1/gonum/mat"
+
+	"trackfactor/factor"
+	"trackfactor/factor/rotation"
+)
+
+// benchScene is a perspective turntable of nf cameras around a ball of np
+// points, each point seen by a contiguous arc of vis·nf cameras (a
+// turntable's banded visibility), with 0.5 px noise; the start is the
+// truth perturbed by 0.3° per camera and 0.3 units per point.
+func benchScene(nf, np int, vis float64) (*factor.Measurements, *factor.Reconstruction) {
+	g := rand.New(rand.NewPCG(uint64(nf), uint64(np)))
+	in := factor.Intrinsics{Fx: 1000, Fy: 1000, Cx: 639.5, Cy: 479.5}
+	rec := &factor.Reconstruction{Model: factor.Perspective, Intrinsics: &in}
+	const dist = 300.0
+	e := 20 * math.Pi / 180
+	Rlab := [3][3]float64{{1, 0, 0}, {0, -math.Sin(e), -math.Cos(e)}, {0, math.Cos(e), -math.Sin(e)}}
+	for f := 0; f < nf; f++ {
+		R := rotation.Mul(Rlab, rotation.RotZ(2*math.Pi*float64(f)/float64(nf)))
+		rec.Cameras = append(rec.Cameras, factor.Camera{Frame: f, R: R, T: [3]float64{0, 0, dist}, Scale: in.Fx / dist})
+	}
+	W := mat.NewDense(2*nf, np, nil)
+	mask := make([]bool, nf*np)
+	arc := int(math.Round(vis * float64(nf)))
+	for j := 0; j < np; j++ {
+		X := [3]float64{g.NormFloat64() * 30, g.NormFloat64() * 30, g.NormFloat64() * 30}
+		rec.Points = append(rec.Points, factor.Point{Track: j, X: X})
+		s := g.IntN(nf)
+		for k := 0; k < arc; k++ {
+			f := (s + k) % nf
+			u, v := rec.Project(f, X)
+			W.Set(2*f, j, u+0.5*g.NormFloat64())
+			W.Set(2*f+1, j, v+0.5*g.NormFloat64())
+			mask[f*np+j] = true
+		}
+	}
+	m := &factor.Measurements{W: W, Mask: mask}
+	return m, perturb(rec, 0.3, 0.3, 0.3, 99)
+}
+
+func largeEnabled(b *testing.B) {
+	if os.Getenv("TF_BENCH_LARGE") != "1" {
+		b.Skip("set TF_BENCH_LARGE=1 to run the large case")
+	}
+}
+
+// benchAdjust runs Adjust to convergence and reports the time per
+// iteration and to convergence.
+func benchAdjust(b *testing.B, nf, np int, solver Solver) {
+	m, start := benchScene(nf, np, 0.3)
+	opts := Options{Solver: solver, SkipUncertainty: true}
+	b.ResetTimer()
+	var iters int
+	var total time.Duration
+	var last *Result
+	for i := 0; i < b.N; i++ {
+		t0 := time.Now()
+		res, err := Adjust(context.Background(), m, start, opts)
+		if err != nil {
+			b.Fatal(err)
+		}
+		total += time.Since(t0)
+		iters += res.Summary.Iterations
+		last = res
+	}
+	b.ReportMetric(float64(total.Milliseconds())/float64(iters), "ms/iter")
+	b.ReportMetric(float64(total.Milliseconds())/float64(b.N), "ms/converged")
+	b.ReportMetric(float64(iters)/float64(b.N), "iters")
+	b.Logf("%s", last.Summary.Brief())
+}
+
+// BenchmarkAdjust72x2000: 72 cameras, 2000 points, 30 % visibility
+// (43 200 observations), Schur solver, to convergence.
+func BenchmarkAdjust72x2000(b *testing.B) { benchAdjust(b, 72, 2000, Schur) }
+
+// BenchmarkAdjust300x20000: 300 cameras, 20 000 points, 30 % visibility
+// (1.8 million observations). Needs TF_BENCH_LARGE=1.
+func BenchmarkAdjust300x20000(b *testing.B) {
+	largeEnabled(b)
+	benchAdjust(b, 300, 20000, Schur)
+}
+
+// benchStep times one linearise-and-solve step of each solver at the
+// start of the 72 × 2000 case.
+func benchStep(b *testing.B, solver Solver) { benchStepSize(b, 72, 2000, solver) }
+
+func benchStepSize(b *testing.B, nf, np int, solver Solver) {
+	m, start := benchScene(nf, np, 0.3)
+	opts := Options{}.WithDefaults()
+	pr, err := prepareFree(m, start, opts)
+	if err != nil {
+		b.Fatal(err)
+	}
+	p := pr.st.prob
+	p.makeChunks(opts.Threads)
+	lin := newLinearizer(p, pr.mod)
+	var sys system
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if solver == Dense {
+			if _, _, _, _, _, ok := lin.denseStep(pr.mod, pr.X, 1e-4); !ok {
+				b.Fatal("dense step failed")
+			}
+			continue
+		}
+		lin.linearize(pr.mod, pr.X, 1e-4, &sys)
+		dc, ok := solveCameras(&sys)
+		if !ok {
+			b.Fatal("Schur step failed")
+		}
+		lin.backSubstitute(pr.mod, pr.X, &sys, dc)
+	}
+}
+
+// BenchmarkStep72x2000Schur and …Dense: one Levenberg–Marquardt step of
+// the 72 × 2000 case (432 camera + 6000 point parameters) by the Schur
+// complement and by the full dense normal equations (6432² matrix, 330 MB;
+// the dense one takes tens of seconds: run with -benchtime=1x).
+func BenchmarkStep72x2000Schur(b *testing.B) { benchStep(b, Schur) }
+func BenchmarkStep72x2000Dense(b *testing.B) { benchStep(b, Dense) }
+
+// BenchmarkStep300x2000Schur: one step with long tracks (90 views per
+// point), where building the reduced system dominates.
+func BenchmarkStep300x2000Schur(b *testing.B) { benchStepSize(b, 300, 2000, Schur) }
+
+// BenchmarkUncertainty72x2000: the covariance at the optimum (the undamped
+// reduced system, its inverse and every point's 3×3 block).
+func BenchmarkUncertainty72x2000(b *testing.B) {
+	m, start := benchScene(72, 2000, 0.3)
+	res, err := Adjust(context.Background(), m, start, Options{SkipUncertainty: true})
+	if err != nil {
+		b.Fatal(err)
+	}
+	opts := Options{}.WithDefaults()
+	pr, err := prepareFree(m, res.Reconstruction, opts)
+	if err != nil {
+		b.Fatal(err)
+	}
+	p := pr.st.prob
+	p.makeChunks(opts.Threads)
+	lin := newLinearizer(p, pr.mod)
+	sum := res.Summary
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := uncertainty(lin, pr.mod, pr.X, pr.st, res.Reconstruction, &sum); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
