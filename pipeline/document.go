@@ -165,4 +165,3 @@ func toKey(k reflect.Value) string {
 	b, _ := json.Marshal(k.Interface())
 	return strings.Trim(string(b), `"`)
 }
-

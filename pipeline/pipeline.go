@@ -84,9 +84,9 @@ type Result struct {
 	// Refinement reports bundle adjustment, the turntable fit and the
 	// scale; nil when the factorization failed before it.
 	Refinement *Refinement
-	Doc     *export.Document
-	Files   []string           // files written, relative to Config.Out
-	Timing  map[string]float64 // seconds by stage
+	Doc        *export.Document
+	Files      []string           // files written, relative to Config.Out
+	Timing     map[string]float64 // seconds by stage
 }
 
 // Run tracks the input, reconstructs and writes the results.

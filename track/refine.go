@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"sync"
+	"sync/atomic"
 )
 
 // RefineOptions configures drift-free refinement: after Lucas–Kanade
@@ -48,7 +49,7 @@ type RefineOptions struct {
 const (
 	defaultHalfPatch = 7
 	defaultRefIter   = 20
-	defaultRefEps    = 0.005
+	defaultRefEps    = 0.02
 	defaultMinNCC    = 0.85
 	defaultMaxShift  = 2.0
 	defaultWorkers   = 2
@@ -142,34 +143,52 @@ func (im *floatImage) at(x, y float64) float64 {
 	return a + fy*(b-a)
 }
 
+var probeIntGrid bool
+var probeMu sync.Mutex
+var probeIters map[int]int
+
 // refPatch is a track's reference appearance and its current warp.
 //
-// The warp maps patch coordinates (u, v), centred on the reference point,
-// to image coordinates (Baker & Matthews 2004, eq. 2, affine):
+// The template T is cut on the pixel grid of the track's first frame,
+// centred on the pixel nearest the detected corner, so it is never
+// resampled (resampling at a sub-pixel offset would blur it by an amount
+// that depends on the offset, and the alignment would inherit a per-track
+// bias). The corner itself sits at (dx, dy), |dx|, |dy| ≤ ½, in template
+// coordinates (u, v).
+//
+// The warp maps template coordinates to image coordinates (Baker &
+// Matthews 2004, eq. 2, affine):
 //
 //	W(u,v; p) = [1+p1  p3  p5] [u v 1]ᵀ
 //	            [p2  1+p4  p6]
 //
-// stored as m = (a11, a12, tx, a21, a22, ty); (tx, ty) is the track's
-// position.
+// stored as m = (a11, a12, tx, a21, a22, ty); the track's position is
+// W(dx, dy).
 type refPatch struct {
-	t    []float32   // template T(u,v), (2h+1)² row-major
-	sd   []float32   // 6 projected steepest-descent images, interleaved: sd[6k+q]
-	hinv [36]float64 // inverse Gauss–Newton Hessian (6×6, row-major)
-	tm   float64     // mean of T
-	tn   float64     // ‖T − mean‖
-	m    [6]float64  // current warp
+	t      []float32   // template T(u,v), (2h+1)² row-major
+	sd     []float32   // 6 projected steepest-descent images, interleaved: sd[6k+q]
+	hinv   [36]float64 // inverse Gauss–Newton Hessian (6×6, row-major)
+	tm     float64     // mean of T
+	tn     float64     // ‖T − mean‖
+	dx, dy float64     // the corner in template coordinates
+	m      [6]float64  // current warp
 }
 
-// newRefPatch cuts the reference patch around (x, y) from im and
-// precomputes the inverse-compositional quantities. It reports false when
-// the patch has too little texture for a stable affine fit. buf is scratch
-// of at least (2h+3)² floats.
+// pos is the track's position under warp m.
+func (p *refPatch) pos(m *[6]float64) (x, y float64) {
+	return m[0]*p.dx + m[1]*p.dy + m[2], m[3]*p.dx + m[4]*p.dy + m[5]
+}
+
+// newRefPatch cuts the reference patch for the corner at (x, y) from im
+// and precomputes the inverse-compositional quantities. It reports false
+// when the patch has too little texture for a stable affine fit. buf is
+// scratch of at least (2h+3)² floats.
 //
 // Inverse compositional algorithm (Baker & Matthews, "Lucas–Kanade 20
 // years on: a unifying framework", IJCV 56(3), 2004, Fig. 4):
 // steepest-descent images SD_j = ∇T · ∂W/∂p_j at p = 0, with
-// ∂W/∂p = [u 0 v 0 1 0; 0 u 0 v 0 1]; Hessian H = Σ SDᵀ SD.
+// ∂W/∂p = [u 0 v 0 1 0; 0 u 0 v 0 1]; Hessian H = Σ SDᵀ SD. Both depend on
+// the template alone, so they are computed once per track, here.
 //
 // Gain and bias: the frame is modelled as I(W(x;p)) = (1+g)·T(x) + b, a
 // linear appearance model with basis {T, 1}. Its effect is projected out of
@@ -183,13 +202,20 @@ func newRefPatch(im *floatImage, x, y float64, h int, buf []float32) (*refPatch,
 	n := 2*h + 1
 	nb := n + 2
 	g := buf[:nb*nb]
+	cx, cy := x, y
+	if probeIntGrid {
+		cx, cy = math.Round(x), math.Round(y)
+	}
 	for j := 0; j < nb; j++ {
 		for i := 0; i < nb; i++ {
-			g[j*nb+i] = float32(im.at(x+float64(i-h-1), y+float64(j-h-1)))
+			g[j*nb+i] = float32(im.at(cx+float64(i-h-1), cy+float64(j-h-1)))
 		}
 	}
-	p := &refPatch{t: make([]float32, n*n), sd: make([]float32, 6*n*n)}
 	np := n * n
+	// One allocation per track: template, then the interleaved
+	// steepest-descent images.
+	mem := make([]float32, 7*np)
+	p := &refPatch{t: mem[:np:np], sd: mem[np:], dx: x - cx, dy: y - cy}
 	var sum float64
 	for j := 0; j < n; j++ {
 		for i := 0; i < n; i++ {
@@ -208,44 +234,47 @@ func newRefPatch(im *floatImage, x, y float64, h int, buf []float32) (*refPatch,
 	if p.tn < 1e-6 {
 		return nil, false
 	}
-	// Steepest-descent images from central differences of the template.
+	// Steepest-descent images from central differences of the template,
+	// one image per parameter (planar layout while projecting).
+	var sdp [6][]float64
+	for q := range sdp {
+		sdp[q] = make([]float64, np)
+	}
 	for j := 0; j < n; j++ {
 		for i := 0; i < n; i++ {
 			k := j*n + i
 			tx := 0.5 * float64(g[(j+1)*nb+i+2]-g[(j+1)*nb+i])
 			ty := 0.5 * float64(g[(j+2)*nb+i+1]-g[j*nb+i+1])
 			u, v := float64(i-h), float64(j-h)
-			p.sd[0*np+k] = float32(tx * u)
-			p.sd[1*np+k] = float32(ty * u)
-			p.sd[2*np+k] = float32(tx * v)
-			p.sd[3*np+k] = float32(ty * v)
-			p.sd[4*np+k] = float32(tx)
-			p.sd[5*np+k] = float32(ty)
+			sdp[0][k] = tx * u
+			sdp[1][k] = ty * u
+			sdp[2][k] = tx * v
+			sdp[3][k] = ty * v
+			sdp[4][k] = tx
+			sdp[5][k] = ty
 		}
 	}
 	// Project out span{1, T−mean} (orthogonal, so two separate projections).
 	inv := 1 / float64(np)
 	for q := 0; q < 6; q++ {
-		s := p.sd[q*np : (q+1)*np]
+		s := sdp[q]
 		var d1, d2 float64
 		for k, v := range s {
-			d1 += float64(v)
-			d2 += float64(v) * (float64(p.t[k]) - p.tm)
+			d1 += v
+			d2 += v * (float64(p.t[k]) - p.tm)
 		}
 		m1 := d1 * inv
 		m2 := d2 / ss
 		for k := range s {
-			s[k] -= float32(m1 + m2*(float64(p.t[k])-p.tm))
+			s[k] -= m1 + m2*(float64(p.t[k])-p.tm)
 		}
 	}
 	var hm [36]float64
 	for a := 0; a < 6; a++ {
-		sa := p.sd[a*np : (a+1)*np]
 		for b := a; b < 6; b++ {
-			sb := p.sd[b*np : (b+1)*np]
 			var acc float64
-			for k := range sa {
-				acc += float64(sa[k]) * float64(sb[k])
+			for k := range sdp[a] {
+				acc += sdp[a][k] * sdp[b][k]
 			}
 			hm[a*6+b], hm[b*6+a] = acc, acc
 		}
@@ -253,16 +282,12 @@ func newRefPatch(im *floatImage, x, y float64, h int, buf []float32) (*refPatch,
 	if !invert6(&hm, &p.hinv) {
 		return nil, false
 	}
-	// Interleave the steepest-descent images (sd[6k+q]) for the
-	// per-pixel loop of align.
-	il := make([]float32, 6*np)
 	for q := 0; q < 6; q++ {
 		for k := 0; k < np; k++ {
-			il[6*k+q] = p.sd[q*np+k]
+			p.sd[6*k+q] = float32(sdp[q][k])
 		}
 	}
-	p.sd = il
-	p.m = [6]float64{1, 0, x, 0, 1, y}
+	p.m = [6]float64{1, 0, cx, 0, 1, cy}
 	return p, true
 }
 
@@ -324,30 +349,40 @@ type refineResult struct {
 	iter int
 }
 
+// patchSums are the sums one pass over the warped patch accumulates: the
+// right-hand side b = Σ_k SD_kᵀ·(I(W(u_k)) − T_k) of the Gauss–Newton
+// step, and Σ I, Σ I², Σ I·(T − mean T) for the normalised
+// cross-correlation.
+type patchSums struct {
+	b            [6]float64
+	si, sii, sit float64
+}
+
 // align runs the inverse-compositional iterations from the warp p.m with
-// its translation replaced by the LK prediction (x, y), updating p.m in
-// place on success. half is the patch half-size.
+// its translation moved so that the track's position is the LK prediction
+// (x, y), updating p.m in place on success. half is the patch half-size.
 //
 // Each iteration (Baker & Matthews 2004, Fig. 4): E(u) = I(W(u;p)) − T(u);
-// Δp = H⁻¹ Σ SDᵀ E; W(·;p) ← W(·;p) ∘ W(·;Δp)⁻¹.
+// Δp = H⁻¹ Σ SDᵀ E; W(·;p) ← W(·;p) ∘ W(·;Δp)⁻¹. The normalised
+// cross-correlation with T is taken from the samples of the last
+// iteration, whose update moved the patch by less than Epsilon (or the
+// iterations hit MaxIter).
 func (p *refPatch) align(im *floatImage, x, y float64, half int, o *RefineOptions) refineResult {
-	n := 2*half + 1
-	np := n * n
+	np := (2*half + 1) * (2*half + 1)
 	m := p.m
-	m[2], m[5] = x, y
+	m[2] = x - (m[0]*p.dx + m[1]*p.dy)
+	m[5] = y - (m[3]*p.dx + m[4]*p.dy)
 	r := refineResult{}
 	hf := float64(half)
+	var s patchSums
 	for it := 0; it < o.MaxIter; it++ {
 		r.iter = it + 1
-		var b [6]float64
-		p.errorDot(im, &m, half, &b)
+		p.sums(im, &m, half, &s)
+		b := &s.b
 		var dp [6]float64
 		for a := 0; a < 6; a++ {
-			s := 0.0
-			for c := 0; c < 6; c++ {
-				s += p.hinv[a*6+c] * b[c]
-			}
-			dp[a] = s
+			h := p.hinv[a*6 : a*6+6 : a*6+6]
+			dp[a] = h[0]*b[0] + h[1]*b[1] + h[2]*b[2] + h[3]*b[3] + h[4]*b[4] + h[5]*b[5]
 		}
 		// W(Δp) = [[1+dp0, dp2, dp4], [dp1, 1+dp3, dp5]]; compose with its
 		// inverse: M ← M · W(Δp)⁻¹.
@@ -366,7 +401,7 @@ func (p *refPatch) align(im *floatImage, x, y float64, half int, o *RefineOption
 		n4 := m[3]*i12 + m[4]*i22
 		n5 := m[3]*it1 + m[4]*it2 + m[5]
 		m = [6]float64{n0, n1, n2, n3, n4, n5}
-		if math.IsNaN(n2) || math.IsNaN(n5) {
+		if math.IsNaN(n2) || math.IsNaN(n5) || math.IsInf(n2, 0) || math.IsInf(n5, 0) {
 			return refineResult{}
 		}
 		// Largest motion of a patch corner under the update.
@@ -375,38 +410,31 @@ func (p *refPatch) align(im *floatImage, x, y float64, half int, o *RefineOption
 			break
 		}
 	}
-	if math.Hypot(m[2]-x, m[5]-y) > o.MaxShift || !affineScaleOK(m) {
-		return refineResult{x: m[2], y: m[5], iter: r.iter}
+	r.x, r.y = p.pos(&m)
+	if math.Hypot(r.x-x, r.y-y) > o.MaxShift || !affineScaleOK(m) {
+		return refineResult{x: r.x, y: r.y, iter: r.iter}
 	}
-	// Normalised cross-correlation of the aligned patch with T.
-	var si, sii, sit float64
-	k := 0
-	for j := 0; j < n; j++ {
-		v := float64(j - half)
-		for i := 0; i < n; i++ {
-			u := float64(i - half)
-			val := im.at(m[0]*u+m[1]*v+m[2], m[3]*u+m[4]*v+m[5])
-			si += val
-			sii += val * val
-			sit += val * (float64(p.t[k]) - p.tm)
-			k++
-		}
-	}
-	vi := sii - si*si/float64(np)
-	ncc := 0.0
+	// Normalised cross-correlation of the sampled patch with T.
+	vi := s.sii - s.si*s.si/float64(np)
 	if vi > 1e-12 {
-		ncc = sit / (math.Sqrt(vi) * p.tn)
+		r.ncc = s.sit / (math.Sqrt(vi) * p.tn)
 	}
-	r.x, r.y, r.ncc, r.ok = m[2], m[5], ncc, true
+	r.ok = true
 	p.m = m
+	probeMu.Lock()
+	if probeIters != nil {
+		probeIters[r.iter]++
+	}
+	probeMu.Unlock()
 	return r
 }
 
-// errorDot accumulates b = Σ_k SD_kᵀ·E_k with E_k = I(W(u_k; m)) − T_k
-// over the patch. When the warped patch (with one pixel to spare) lies
-// inside the image, samples are bilinear without clamping and the warped
-// coordinates advance incrementally along each row.
-func (p *refPatch) errorDot(im *floatImage, m *[6]float64, half int, b *[6]float64) {
+// sums makes one pass over the patch warped by m (see patchSums). When the
+// warped patch (with one pixel to spare) lies inside the image, samples
+// are bilinear without clamping and the warped coordinates advance
+// incrementally along each row; otherwise each sample is clamped to the
+// border.
+func (p *refPatch) sums(im *floatImage, m *[6]float64, half int, s *patchSums) {
 	n := 2*half + 1
 	hf := float64(half)
 	inside := true
@@ -418,9 +446,12 @@ func (p *refPatch) errorDot(im *floatImage, m *[6]float64, half int, b *[6]float
 			break
 		}
 	}
-	var b0, b1, b2, b3, b4, b5 float64
+	var b0, b1, b2, b3, b4, b5, si, sii, sit float64
 	w := im.w
 	pix := im.pix
+	tm := p.tm
+	t := p.t[:n*n]
+	sd := p.sd[:6*n*n]
 	k := 0
 	for j := 0; j < n; j++ {
 		v := float64(j) - hf
@@ -432,28 +463,34 @@ func (p *refPatch) errorDot(im *floatImage, m *[6]float64, half int, b *[6]float
 				x0, y0 := int(X), int(Y)
 				fx, fy := X-float64(x0), Y-float64(y0)
 				o := y0*w + x0
-				q00, q01 := float64(pix[o]), float64(pix[o+1])
-				q10, q11 := float64(pix[o+w]), float64(pix[o+w+1])
+				q := pix[o : o+w+2 : o+w+2]
+				q00, q01 := float64(q[0]), float64(q[1])
+				q10, q11 := float64(q[w]), float64(q[w+1])
 				top := q00 + fx*(q01-q00)
 				bot := q10 + fx*(q11-q10)
 				val = top + fy*(bot-top)
 			} else {
 				val = im.at(X, Y)
 			}
-			e := val - float64(p.t[k])
-			sd := p.sd[6*k : 6*k+6 : 6*k+6]
-			b0 += float64(sd[0]) * e
-			b1 += float64(sd[1]) * e
-			b2 += float64(sd[2]) * e
-			b3 += float64(sd[3]) * e
-			b4 += float64(sd[4]) * e
-			b5 += float64(sd[5]) * e
+			tk := float64(t[k])
+			e := val - tk
+			g := sd[6*k : 6*k+6 : 6*k+6]
+			b0 += float64(g[0]) * e
+			b1 += float64(g[1]) * e
+			b2 += float64(g[2]) * e
+			b3 += float64(g[3]) * e
+			b4 += float64(g[4]) * e
+			b5 += float64(g[5]) * e
+			si += val
+			sii += val * val
+			sit += val * (tk - tm)
 			X += m[0]
 			Y += m[3]
 			k++
 		}
 	}
-	*b = [6]float64{b0, b1, b2, b3, b4, b5}
+	s.b = [6]float64{b0, b1, b2, b3, b4, b5}
+	s.si, s.sii, s.sit = si, sii, sit
 }
 
 // affineScaleOK checks the singular values of the warp's 2×2 part lie in
@@ -472,35 +509,86 @@ func affineScaleOK(m [6]float64) bool {
 	return s1 <= maxAffineScale && s2 >= minAffineScale
 }
 
-// refineAll aligns points idx of pts in parallel over o.Workers goroutines;
-// patches[i] is the reference of point i (nil = skip). Results go to res.
-func refineAll(im *floatImage, patches []*refPatch, xs, ys []float64, res []refineResult, half int, o *RefineOptions) {
-	n := len(patches)
-	w := o.Workers
-	if w > n {
-		w = n
-	}
-	if w <= 1 {
-		for i := 0; i < n; i++ {
-			if patches[i] != nil {
-				res[i] = patches[i].align(im, xs[i], ys[i], half, o)
+// refineBatch is one frame's refinement work: point i is aligned against
+// patches[i] (nil = skip) from the LK prediction (xs[i], ys[i]) into
+// res[i]. Workers take blocks of refineBlock points from next.
+type refineBatch struct {
+	im      *floatImage
+	patches []*refPatch
+	xs, ys  []float64
+	res     []refineResult
+	half    int
+	o       *RefineOptions
+	next    atomic.Int64
+}
+
+// refineBlock is the number of points a worker takes at a time: small
+// enough to balance the load, large enough that the shared counter is
+// touched rarely.
+const refineBlock = 16
+
+func (b *refineBatch) work() {
+	n := int64(len(b.patches))
+	for {
+		s := b.next.Add(refineBlock) - refineBlock
+		if s >= n {
+			return
+		}
+		e := min(n, s+refineBlock)
+		for i := s; i < e; i++ {
+			if p := b.patches[i]; p != nil {
+				b.res[i] = p.align(b.im, b.xs[i], b.ys[i], b.half, b.o)
 			}
 		}
-		return
 	}
-	var wg sync.WaitGroup
-	chunk := (n + w - 1) / w
-	for s := 0; s < n; s += chunk {
-		e := min(n, s+chunk)
-		wg.Add(1)
-		go func(s, e int) {
-			defer wg.Done()
-			for i := s; i < e; i++ {
-				if patches[i] != nil {
-					res[i] = patches[i].align(im, xs[i], ys[i], half, o)
+}
+
+// refinePool is a fixed pool of goroutines that refine one frame's points
+// together with the calling goroutine: Workers−1 helpers are started once
+// per Run and reused for every frame, so there is no per-frame goroutine
+// or allocation.
+type refinePool struct {
+	start chan *refineBatch
+	wg    sync.WaitGroup
+	batch refineBatch
+	n     int // helpers
+}
+
+func newRefinePool(workers int) *refinePool {
+	p := &refinePool{n: max(0, workers-1)}
+	if p.n > 0 {
+		p.start = make(chan *refineBatch, p.n)
+		for i := 0; i < p.n; i++ {
+			go func() {
+				for b := range p.start {
+					b.work()
+					p.wg.Done()
 				}
-			}
-		}(s, e)
+			}()
+		}
 	}
-	wg.Wait()
+	return p
+}
+
+// run aligns every point with a patch and waits for all of them.
+func (p *refinePool) run(im *floatImage, patches []*refPatch, xs, ys []float64, res []refineResult, half int, o *RefineOptions) {
+	b := &p.batch
+	b.im, b.patches, b.xs, b.ys, b.res, b.half, b.o = im, patches, xs, ys, res, half, o
+	b.next.Store(0)
+	helpers := min(p.n, (len(patches)+refineBlock-1)/refineBlock-1)
+	p.wg.Add(max(0, helpers))
+	for i := 0; i < helpers; i++ {
+		p.start <- b
+	}
+	b.work()
+	p.wg.Wait()
+	b.im, b.patches, b.xs, b.ys, b.res, b.o = nil, nil, nil, nil, nil, nil
+}
+
+// close stops the helpers.
+func (p *refinePool) close() {
+	if p.start != nil {
+		close(p.start)
+		p.start = nil
+	}
 }

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"image"
 	"math"
+	"slices"
 	"sync"
 
 	"gocv.io/x/gocv"
@@ -47,13 +48,29 @@ type Options struct {
 
 	// NoPredict turns motion prediction off. With prediction (default)
 	// each point starts LK from its previous position plus its previous
-	// displacement (OPTFLOW_USE_INITIAL_FLOW) on PredictLevels pyramid
-	// levels; points that fail are tracked again without prediction on all
-	// Levels ("deep retry", counted in Stats.Retried).
+	// displacement (OPTFLOW_USE_INITIAL_FLOW; a new track takes the mean
+	// displacement of the live tracks near it) on a shallower pyramid
+	// (PredictLevels); points that fail are tracked again without
+	// prediction on all Levels ("deep retry", counted in Stats.Retried).
 	NoPredict bool
-	// PredictLevels is the number of pyramid levels used with prediction.
-	// Default 1; at most Levels.
+	// PredictLevels is the number of pyramid levels above full resolution
+	// (OpenCV's maxLevel) used with prediction, at most Levels.
+	//
+	// Default (0): chosen before every frame pair from the residual
+	// motion, the 95th percentile of |displacement − previous
+	// displacement| over the tracks of the last pair: the fewest levels L
+	// with residual ≤ PredictCapture·2^L (each level halves the motion
+	// LK has to capture); all Levels for the first pair, which has no
+	// motion history. The depth used for every pair is in
+	// Stats.PredictLevels. A positive value fixes the depth; negative
+	// fixes it at 0 (full resolution only).
 	PredictLevels int
+	// PredictCapture is the residual motion in pixels that LK is trusted
+	// to capture at full resolution when PredictLevels is automatic.
+	// Default 2 px (about a tenth of the default 21 px window: a
+	// conservative choice, since a point that LK loses is retried on the
+	// full pyramid anyway, from memory of common practice).
+	PredictCapture float64
 
 	// RedetectEvery re-detects corners in empty areas every K frames.
 	// Default 5; negative means only when the count falls (RedetectBelow).
@@ -80,18 +97,21 @@ type Options struct {
 }
 
 const (
-	defaultWindow        = 21
-	defaultLevels        = 3
-	defaultLKIter        = 30
-	defaultLKEps         = 0.01
-	defaultMinEigen      = 1e-4
-	defaultFB            = 0.5
-	defaultPredictLevels = 1
-	defaultRedetectEvery = 5
-	defaultRedetectBelow = 0.7
-	defaultMinLength     = 2
-	defaultPrefetch      = 2
-	minWindow            = 5
+	defaultWindow         = 21
+	defaultLevels         = 3
+	defaultLKIter         = 30
+	defaultLKEps          = 0.01
+	defaultMinEigen       = 1e-4
+	defaultFB             = 0.5
+	defaultPredictCapture = 2.0
+	defaultRedetectEvery  = 5
+	defaultRedetectBelow  = 0.7
+	defaultMinLength      = 2
+	defaultPrefetch       = 2
+	minWindow             = 5
+	// vgridCell is the cell size in pixels over which new tracks take the
+	// mean displacement of their neighbours as their first prediction.
+	vgridCell = 32
 )
 
 // Validate reports the first option that breaks its rule, naming the
@@ -119,8 +139,10 @@ func (o Options) Validate() error {
 		return fmt.Errorf("track: MinEigen %g is negative (0 = default %g)", o.MinEigen, defaultMinEigen)
 	case math.IsNaN(o.FBThreshold):
 		return fmt.Errorf("track: FBThreshold is NaN; give pixels (0 = default %g, negative = off)", defaultFB)
-	case o.PredictLevels < 0 || o.PredictLevels > 10:
-		return fmt.Errorf("track: PredictLevels %d must be in 0..10 (0 = default %d)", o.PredictLevels, defaultPredictLevels)
+	case o.PredictLevels > 10:
+		return fmt.Errorf("track: PredictLevels %d must be at most 10 (0 = automatic, negative = full resolution only)", o.PredictLevels)
+	case o.PredictCapture < 0 || math.IsNaN(o.PredictCapture) || math.IsInf(o.PredictCapture, 0):
+		return fmt.Errorf("track: PredictCapture %g must be a positive number of pixels (0 = default %g)", o.PredictCapture, defaultPredictCapture)
 	case math.IsNaN(o.RedetectBelow) || o.RedetectBelow >= 1:
 		return fmt.Errorf("track: RedetectBelow %g must be below 1 (0 = default %g, negative = off)", o.RedetectBelow, defaultRedetectBelow)
 	case o.MinLength < 0:
@@ -151,8 +173,8 @@ func (o Options) withDefaults() Options {
 	if o.FBThreshold == 0 {
 		o.FBThreshold = defaultFB
 	}
-	if o.PredictLevels == 0 {
-		o.PredictLevels = defaultPredictLevels
+	if o.PredictCapture == 0 {
+		o.PredictCapture = defaultPredictCapture
 	}
 	if o.RedetectEvery == 0 {
 		o.RedetectEvery = defaultRedetectEvery
@@ -229,7 +251,8 @@ func Run(ctx context.Context, src Source, opts Options, progress func(done, tota
 	set.Stats.Ended = map[string]int{}
 	set.Stats.Clamped = t.clamped
 
-	frames, stop := startReader(ctx, src, n, t.o.Prefetch, !t.o.Refine.Off, t.o.Refine.Sigma)
+	frames, stop := startReader(ctx, src, n, readerSettings{prefetch: t.o.Prefetch, float: !t.o.Refine.Off,
+		sigma: t.o.Refine.Sigma, win: t.o.Window, levels: t.levels})
 	defer stop()
 
 	var prev *frameBuf
@@ -266,66 +289,40 @@ func Run(ctx context.Context, src Source, opts Options, progress func(done, tota
 	return set, nil
 }
 
-// lkMat is a reusable N×1 CV_32FC2 (or CV_8U / CV_32F) Mat of a given
-// capacity, viewed as its first n rows for each call.
-type lkMat struct {
-	m   gocv.Mat
-	cap int
-	typ gocv.MatType
-}
-
-func (b *lkMat) view(n int) gocv.Mat {
-	if n > b.cap {
-		if b.cap > 0 {
-			b.m.Close()
-		}
-		b.cap = max(2*b.cap, n, 256)
-		b.m = gocv.NewMatWithSize(b.cap, 1, b.typ)
-	}
-	return b.m.RowRange(0, n)
-}
-
-func (b *lkMat) close() {
-	if b.cap > 0 {
-		b.m.Close()
-		b.cap = 0
-	}
-}
-
 // tracker holds the state of one Run call.
 type tracker struct {
 	o       Options
 	w, h    int
-	margin  int // half window: points closer to the border are ended
-	levels  int // effective pyramid levels
-	plevels int // effective levels with prediction
+	margin  int  // half window: points closer to the border are ended
+	levels  int  // effective pyramid levels
+	plevels int  // levels with prediction for the next pair
+	autoLvl bool // plevels chosen from the residual motion
 	clamped []string
 
-	crit gocv.TermCriteria
 	det  *detector
-	in   lkMat // prevPts
-	out  lkMat // nextPts
-	st   lkMat // status
-	er   lkMat // err (min eigenvalues)
+	pool *refinePool // nil when refinement is off
 
 	tracks  []Track
 	reasons []string // end reason per track id ("" = alive)
 	live    []liveTrack
 
-	// scratch, reused every frame
-	px, py, fx, fy, bx, by, ix, iy []float32
-	vx, vy, rpx, rpy, rfx, rfy     []float32
-	rdrop                          []string
-	xs, ys                         []float64
-	sf, sb                         []uint8
-	ef, eb                         []float32
-	idx                            []int
-	drop                           []string
-	rp                             []*refPatch
-	rr                             []refineResult
-	baseMask                       []uint8
-	mask                           []uint8
-	patchBuf                       []float32
+	// scratch, reused every frame; point coordinates interleaved (x, y)
+	p, f, b, v []float32 // previous positions, forward, backward, last displacement
+	rp0, rf    []float32 // deep retry: positions, results
+	rdrop      []string
+	xs, ys     []float64
+	sf, sb     []uint8
+	ef, eb     []float32
+	idx        []int
+	drop       []string
+	rp         []*refPatch
+	rr         []refineResult
+	baseMask   []uint8
+	mask       []uint8
+	patchBuf   []float32
+	resid      []float64 // residual motion of this pair's tracks
+	vgrid      []float64 // neighbour motion per cell: Σvx, Σvy, count
+	usedLevels []int     // prediction depth per pair
 
 	lastDetected int
 	liveCount    []int
@@ -337,7 +334,8 @@ type tracker struct {
 type liveTrack struct {
 	id     int
 	x, y   float64 // position in the last frame
-	vx, vy float64 // last displacement
+	vx, vy float64 // last displacement (for a new track: its neighbours')
+	moved  bool    // vx, vy is the track's own displacement
 	ref    *refPatch
 }
 
@@ -357,9 +355,17 @@ func newTracker(o Options, w, h int, given Options) *tracker {
 	if t.levels < o.Levels {
 		t.clamped = append(t.clamped, fmt.Sprintf("pyramid levels %d reduced to %d on %dx%d frames with a %d px window (a coarser level would be no larger than the window)", o.Levels, t.levels, w, h, win))
 	}
-	t.plevels = min(o.PredictLevels, t.levels)
-	if !o.NoPredict && given.PredictLevels > t.levels {
-		t.clamped = append(t.clamped, fmt.Sprintf("PredictLevels %d reduced to %d (the pyramid levels in use)", given.PredictLevels, t.plevels))
+	switch {
+	case o.PredictLevels == 0:
+		t.autoLvl = true
+		t.plevels = t.levels // first pair: no motion history
+	case o.PredictLevels < 0:
+		t.plevels = 0
+	default:
+		t.plevels = min(o.PredictLevels, t.levels)
+		if !o.NoPredict && given.PredictLevels > t.levels {
+			t.clamped = append(t.clamped, fmt.Sprintf("PredictLevels %d reduced to %d (the pyramid levels in use)", given.PredictLevels, t.plevels))
+		}
 	}
 	if o.Detect.Border < t.margin+1 {
 		t.o.Detect.Border = t.margin + 1
@@ -368,10 +374,10 @@ func newTracker(o Options, w, h int, given Options) *tracker {
 		t.clamped = append(t.clamped, fmt.Sprintf("refine HalfPatch %d reduced to %d (half the LK window)", o.Refine.HalfPatch, t.margin))
 		t.o.Refine.HalfPatch = t.margin
 	}
-	t.crit = gocv.NewTermCriteria(gocv.Count|gocv.EPS, o.MaxIter, o.Epsilon)
 	t.det = newDetector()
-	t.in.typ, t.out.typ = gocv.MatTypeCV32FC2, gocv.MatTypeCV32FC2
-	t.st.typ, t.er.typ = gocv.MatTypeCV8U, gocv.MatTypeCV32F
+	if !o.Refine.Off {
+		t.pool = newRefinePool(o.Refine.Workers)
+	}
 	// Detection mask: the user's mask minus the border band.
 	t.baseMask = make([]uint8, w*h)
 	b := t.o.Detect.Border
@@ -391,10 +397,9 @@ func newTracker(o Options, w, h int, given Options) *tracker {
 
 func (t *tracker) close() {
 	t.det.close()
-	t.in.close()
-	t.out.close()
-	t.st.close()
-	t.er.close()
+	if t.pool != nil {
+		t.pool.close()
+	}
 }
 
 // inside reports whether (x, y) is at least half a window from the border.
@@ -403,47 +408,14 @@ func (t *tracker) inside(x, y float64) bool {
 	return x >= m && y >= m && x <= float64(t.w-1)-m && y <= float64(t.h-1)-m && !math.IsNaN(x) && !math.IsNaN(y)
 }
 
-// lk runs OpenCV's pyramidal LK on n points from prev to next. With init,
-// (ix, iy) are the starting guesses (OPTFLOW_USE_INITIAL_FLOW). Results:
-// positions (ox, oy), status and the minimum eigenvalue per point
-// (OPTFLOW_LK_GET_MIN_EIGENVALS).
-func (t *tracker) lk(prev, next gocv.Mat, px, py, ix, iy []float32, init bool, levels int, ox, oy []float32, st []uint8, eg []float32) {
-	n := len(px)
-	if n == 0 {
-		return
-	}
-	in := t.in.view(n)
-	out := t.out.view(n)
-	sm := t.st.view(n)
-	em := t.er.view(n)
-	defer func() {
-		in.Close()
-		out.Close()
-		sm.Close()
-		em.Close()
-	}()
-	p, _ := in.DataPtrFloat32()
-	for i := 0; i < n; i++ {
-		p[2*i], p[2*i+1] = px[i], py[i]
-	}
-	flags := gocv.OptflowLkGetMinEigenvals
-	if init {
-		q, _ := out.DataPtrFloat32()
-		for i := 0; i < n; i++ {
-			q[2*i], q[2*i+1] = ix[i], iy[i]
-		}
-		flags |= gocv.OptflowUseInitialFlow
-	}
-	win := image.Pt(t.o.Window, t.o.Window)
-	gocv.CalcOpticalFlowPyrLKWithParams(prev, next, in, out, &sm, &em, win, levels, t.crit, flags, t.o.MinEigen)
-	q, _ := out.DataPtrFloat32()
-	s, _ := sm.DataPtrUint8()
-	e, _ := em.DataPtrFloat32()
-	for i := 0; i < n; i++ {
-		ox[i], oy[i] = q[2*i], q[2*i+1]
-		st[i] = s[i]
-		eg[i] = e[i]
-	}
+// lk runs OpenCV's pyramidal LK (on the frames' pyramids, built once
+// per frame) on the points pts (interleaved x, y) from prev to next, on
+// levels levels above full resolution. With init, out holds the starting
+// guesses (OPTFLOW_USE_INITIAL_FLOW). Results: positions in out, status
+// and the minimum eigenvalue per point (OPTFLOW_LK_GET_MIN_EIGENVALS).
+func (t *tracker) lk(prev, next *lkPyramid, pts, out []float32, init bool, levels int, st []uint8, eg []float32) {
+	lkPyr(prev, next, pts, out, st, eg, lkParams{win: t.o.Window, maxLevel: levels, maxIter: t.o.MaxIter,
+		eps: t.o.Epsilon, minEig: t.o.MinEigen, initial: init})
 }
 
 func grow32(s []float32, n int) []float32 {
@@ -460,36 +432,37 @@ func grow8(s []uint8, n int) []uint8 {
 	return s[:n]
 }
 
-// track runs forward and backward LK for the points (px, py) and
-// classifies each: "" kept, else a Drop* reason. Results in t.fx, t.fy.
-func (t *tracker) track(prev, cur gocv.Mat, predict bool, levels int, px, py, vx, vy []float32, fx, fy []float32, drop []string) {
-	n := len(px)
-	t.ix, t.iy = grow32(t.ix, n), grow32(t.iy, n)
+// track runs forward and backward LK for the points p (interleaved) and
+// classifies each: drop[i] is "" when kept, else a Drop* reason. With
+// predict, LK starts from p + v (v: last displacements). Forward results
+// go to f.
+func (t *tracker) track(prev, cur *lkPyramid, predict bool, levels int, p, v, f []float32, drop []string) {
+	n := len(p) / 2
 	t.sf, t.ef = grow8(t.sf, n), grow32(t.ef, n)
 	if predict {
-		for i := 0; i < n; i++ {
-			t.ix[i], t.iy[i] = px[i]+vx[i], py[i]+vy[i]
+		for i := range f {
+			f[i] = p[i] + v[i]
 		}
 	}
-	t.lk(prev, cur, px, py, t.ix, t.iy, predict, levels, fx, fy, t.sf, t.ef)
+	t.lk(prev, cur, p, f, predict, levels, t.sf, t.ef)
 	fb := t.o.FBThreshold > 0
 	if fb {
-		t.bx, t.by = grow32(t.bx, n), grow32(t.by, n)
+		t.b = grow32(t.b, 2*n)
 		t.sb, t.eb = grow8(t.sb, n), grow32(t.eb, n)
 		if predict {
 			// Start the backward run from the forward result minus the
 			// prediction, not from the original point (which would bias
 			// the check towards success).
-			for i := 0; i < n; i++ {
-				t.ix[i], t.iy[i] = fx[i]-vx[i], fy[i]-vy[i]
+			for i := range f {
+				t.b[i] = f[i] - v[i]
 			}
 		}
-		t.lk(cur, prev, fx, fy, t.ix, t.iy, predict, levels, t.bx, t.by, t.sb, t.eb)
+		t.lk(cur, prev, f, t.b, predict, levels, t.sb, t.eb)
 	}
 	fb2 := t.o.FBThreshold * t.o.FBThreshold
 	minEig := float32(t.o.MinEigen)
 	for i := 0; i < n; i++ {
-		x, y := float64(fx[i]), float64(fy[i])
+		x, y := float64(f[2*i]), float64(f[2*i+1])
 		switch {
 		case t.sf[i] == 0 && !t.inside(x, y):
 			drop[i] = DropLeftImage
@@ -499,7 +472,7 @@ func (t *tracker) track(prev, cur gocv.Mat, predict bool, levels int, px, py, vx
 			drop[i] = DropNotFound
 		case !t.inside(x, y):
 			drop[i] = DropLeftImage
-		case fb && (t.sb[i] == 0 || sq(float64(t.bx[i]-px[i]))+sq(float64(t.by[i]-py[i])) > fb2):
+		case fb && (t.sb[i] == 0 || sq(float64(t.b[2*i]-p[2*i]))+sq(float64(t.b[2*i+1]-p[2*i+1])) > fb2):
 			drop[i] = DropForwardBack
 		default:
 			drop[i] = ""
@@ -515,24 +488,23 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 	if n == 0 {
 		return
 	}
-	t.px, t.py = grow32(t.px, n), grow32(t.py, n)
-	t.fx, t.fy = grow32(t.fx, n), grow32(t.fy, n)
-	t.vx, t.vy = grow32(t.vx, n), grow32(t.vy, n)
-	vx, vy := t.vx, t.vy
+	t.p, t.f, t.v = grow32(t.p, 2*n), grow32(t.f, 2*n), grow32(t.v, 2*n)
 	if cap(t.drop) < n {
 		t.drop = make([]string, n, 2*n)
 	}
 	t.drop = t.drop[:n]
 	for i, l := range t.live {
-		t.px[i], t.py[i] = float32(l.x), float32(l.y)
-		vx[i], vy[i] = float32(l.vx), float32(l.vy)
+		t.p[2*i], t.p[2*i+1] = float32(l.x), float32(l.y)
+		t.v[2*i], t.v[2*i+1] = float32(l.vx), float32(l.vy)
 	}
 	predict := !t.o.NoPredict
 	levels := t.levels
 	if predict {
 		levels = t.plevels
+		t.usedLevels = append(t.usedLevels, levels)
 	}
-	t.track(prev.gray, cur.gray, predict, levels, t.px, t.py, vx, vy, t.fx, t.fy, t.drop)
+	t.resid = t.resid[:0]
+	t.track(prev.pyr, cur.pyr, predict, levels, t.p, t.v, t.f, t.drop)
 
 	// Deep retry of failures without prediction on all levels.
 	if predict && t.plevels < t.levels {
@@ -544,18 +516,17 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 		}
 		if m := len(t.idx); m > 0 {
 			t.retried += m
-			t.rpx, t.rpy = grow32(t.rpx, m), grow32(t.rpy, m)
-			t.rfx, t.rfy = grow32(t.rfx, m), grow32(t.rfy, m)
+			t.rp0, t.rf = grow32(t.rp0, 2*m), grow32(t.rf, 2*m)
 			if cap(t.rdrop) < m {
 				t.rdrop = make([]string, m, 2*m)
 			}
-			rpx, rpy, rfx, rfy, rdrop := t.rpx, t.rpy, t.rfx, t.rfy, t.rdrop[:m]
+			rdrop := t.rdrop[:m]
 			for k, i := range t.idx {
-				rpx[k], rpy[k] = t.px[i], t.py[i]
+				t.rp0[2*k], t.rp0[2*k+1] = t.p[2*i], t.p[2*i+1]
 			}
-			t.track(prev.gray, cur.gray, false, t.levels, rpx, rpy, nil, nil, rfx, rfy, rdrop)
+			t.track(prev.pyr, cur.pyr, false, t.levels, t.rp0, nil, t.rf, rdrop)
 			for k, i := range t.idx {
-				t.fx[i], t.fy[i], t.drop[i] = rfx[k], rfy[k], rdrop[k]
+				t.f[2*i], t.f[2*i+1], t.drop[i] = t.rf[2*k], t.rf[2*k+1], rdrop[k]
 			}
 		}
 	}
@@ -569,7 +540,7 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 		}
 		xs, ys := t.xs[:n], t.ys[:n]
 		for i, l := range t.live {
-			xs[i], ys[i] = float64(t.fx[i]), float64(t.fy[i])
+			xs[i], ys[i] = float64(t.f[2*i]), float64(t.f[2*i+1])
 			if t.drop[i] == "" {
 				t.rp = append(t.rp, l.ref)
 			} else {
@@ -580,13 +551,13 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 			t.rr = make([]refineResult, n, 2*n)
 		}
 		t.rr = t.rr[:n]
-		refineAll(&cur.fl, t.rp, xs, ys, t.rr, t.o.Refine.HalfPatch, &t.o.Refine)
+		t.pool.run(&cur.fl, t.rp, xs, ys, t.rr, t.o.Refine.HalfPatch, &t.o.Refine)
 	}
 
 	kept := t.live[:0]
 	for i, l := range t.live {
 		reason := t.drop[i]
-		x, y := float64(t.fx[i]), float64(t.fy[i])
+		x, y := float64(t.f[2*i]), float64(t.f[2*i+1])
 		q := 0.0
 		if reason == "" && refine {
 			r := t.rr[i]
@@ -607,7 +578,11 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 		}
 		tr := &t.tracks[l.id]
 		tr.Obs = append(tr.Obs, Observation{Frame: f, X: x, Y: y, Quality: q})
-		l.vx, l.vy = x-l.x, y-l.y
+		vx, vy := x-l.x, y-l.y
+		if l.moved {
+			t.resid = append(t.resid, math.Hypot(vx-l.vx, vy-l.vy))
+		}
+		l.vx, l.vy, l.moved = vx, vy, true
 		l.x, l.y = x, y
 		kept = append(kept, l)
 	}
@@ -615,6 +590,71 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 		t.live[i] = liveTrack{}
 	}
 	t.live = kept
+	if t.autoLvl && predict {
+		t.chooseLevels()
+	}
+}
+
+// chooseLevels sets the prediction depth for the next pair from the
+// residual motion of this one (t.resid; see Options.PredictLevels).
+func (t *tracker) chooseLevels() {
+	if len(t.resid) == 0 {
+		t.plevels = t.levels
+		return
+	}
+	slices.Sort(t.resid)
+	q := t.resid[min(len(t.resid)-1, int(math.Ceil(0.95*float64(len(t.resid))))-1)]
+	l, r := 0, t.o.PredictCapture
+	for l < t.levels && q > r {
+		l++
+		r *= 2
+	}
+	t.plevels = l
+}
+
+// neighbourMotion fills t.vgrid with the mean displacement of the live
+// tracks that have moved, per cell of vgridCell pixels.
+func (t *tracker) neighbourMotion() {
+	gw, gh := (t.w+vgridCell-1)/vgridCell, (t.h+vgridCell-1)/vgridCell
+	if cap(t.vgrid) < 3*gw*gh {
+		t.vgrid = make([]float64, 3*gw*gh)
+	}
+	t.vgrid = t.vgrid[:3*gw*gh]
+	clear(t.vgrid)
+	for _, l := range t.live {
+		if !l.moved {
+			continue
+		}
+		cx := min(gw-1, max(0, int(l.x)/vgridCell))
+		cy := min(gh-1, max(0, int(l.y)/vgridCell))
+		g := t.vgrid[3*(cy*gw+cx):]
+		g[0] += l.vx
+		g[1] += l.vy
+		g[2]++
+	}
+}
+
+// predictNew is the starting displacement of a new track at (x, y): the
+// mean displacement of the moved live tracks in its cell of t.vgrid, else
+// in the 3×3 cells around it, else none.
+func (t *tracker) predictNew(x, y float64) (vx, vy float64) {
+	gw, gh := (t.w+vgridCell-1)/vgridCell, (t.h+vgridCell-1)/vgridCell
+	cx := min(gw-1, max(0, int(x)/vgridCell))
+	cy := min(gh-1, max(0, int(y)/vgridCell))
+	if g := t.vgrid[3*(cy*gw+cx):]; g[2] > 0 {
+		return g[0] / g[2], g[1] / g[2]
+	}
+	var sx, sy, n float64
+	for j := max(0, cy-1); j <= min(gh-1, cy+1); j++ {
+		for i := max(0, cx-1); i <= min(gw-1, cx+1); i++ {
+			g := t.vgrid[3*(j*gw+i):]
+			sx, sy, n = sx+g[0], sy+g[1], n+g[2]
+		}
+	}
+	if n == 0 {
+		return 0, 0
+	}
+	return sx / n, sy / n
 }
 
 // maybeRedetect adds tracks in empty areas of frame f when due.
@@ -651,6 +691,9 @@ func (t *tracker) detectNew(cur *frameBuf, f int) {
 			}
 		}
 	}
+	if !t.o.NoPredict {
+		t.neighbourMotion()
+	}
 	o := t.o.Detect
 	o.MaxCorners = t.o.Detect.MaxCorners - len(t.live)
 	corners := t.det.detect(cur.gray, o, nil, t.mask)
@@ -678,7 +721,11 @@ func (t *tracker) detectNew(cur *frameBuf, f int) {
 		tr.Obs = []Observation{{Frame: f, X: c.X, Y: c.Y, Quality: q}}
 		t.tracks = append(t.tracks, tr)
 		t.reasons = append(t.reasons, "")
-		t.live = append(t.live, liveTrack{id: id, x: c.X, y: c.Y, ref: ref})
+		l := liveTrack{id: id, x: c.X, y: c.Y, ref: ref}
+		if !t.o.NoPredict {
+			l.vx, l.vy = t.predictNew(c.X, c.Y)
+		}
+		t.live = append(t.live, l)
 	}
 	t.lastDetected = len(t.live)
 }
@@ -721,6 +768,7 @@ func (t *tracker) finish(set *Set) {
 	}
 	st.Detected = t.detected
 	st.Retried = t.retried
+	st.PredictLevels = t.usedLevels
 	st.Live = t.liveCount
 }
 
@@ -749,13 +797,24 @@ func (t *tracker) applyReject(set *Set, rep *RejectReport) {
 	st.Reject = rep
 }
 
-// frameBuf is one decoded frame: colour, grey and (for refinement) float.
+// frameBuf is one decoded frame: colour, grey, its LK pyramid and (for
+// refinement) float.
 type frameBuf struct {
 	i         int
 	bgr, gray gocv.Mat
+	pyr       *lkPyramid // grey pyramid with derivatives, built once
 	smooth    gocv.Mat   // CV_32F, Gaussian-smoothed grey for refinement
 	fl        floatImage // aliases smooth's data
 	err       error
+}
+
+// readerSettings say what the frame reader prepares for each frame.
+type readerSettings struct {
+	prefetch int     // frames decoded ahead (≤ 0: in line)
+	float    bool    // make the smoothed float image for refinement
+	sigma    float64 // its Gaussian σ (≤ 0: none)
+	win      int     // LK window the pyramid's borders are made for
+	levels   int     // pyramid levels above full resolution
 }
 
 // frameReader decodes frames in a goroutine, Prefetch frames ahead,
@@ -764,8 +823,7 @@ type frameBuf struct {
 type frameReader struct {
 	src    Source
 	n      int
-	float  bool
-	sigma  float64
+	set    readerSettings
 	inline bool
 	next_  int
 	free   chan *frameBuf
@@ -775,8 +833,9 @@ type frameReader struct {
 	wg     sync.WaitGroup
 }
 
-func startReader(ctx context.Context, src Source, n, prefetch int, float bool, sigma float64) (*frameReader, func()) {
-	r := &frameReader{src: src, n: n, float: float, sigma: sigma}
+func startReader(ctx context.Context, src Source, n int, set readerSettings) (*frameReader, func()) {
+	prefetch := set.prefetch
+	r := &frameReader{src: src, n: n, set: set}
 	nbuf := 2
 	if prefetch > 0 {
 		nbuf += prefetch
@@ -785,7 +844,7 @@ func startReader(ctx context.Context, src Source, n, prefetch int, float bool, s
 	}
 	r.free = make(chan *frameBuf, nbuf)
 	for i := 0; i < nbuf; i++ {
-		b := &frameBuf{bgr: gocv.NewMat(), gray: gocv.NewMat(), smooth: gocv.NewMat()}
+		b := &frameBuf{bgr: gocv.NewMat(), gray: gocv.NewMat(), smooth: gocv.NewMat(), pyr: newLKPyramid()}
 		r.all = append(r.all, b)
 		r.free <- b
 	}
@@ -807,6 +866,7 @@ func startReader(ctx context.Context, src Source, n, prefetch int, float bool, s
 			b.bgr.Close()
 			b.gray.Close()
 			b.smooth.Close()
+			b.pyr.close()
 		}
 	}
 	return r, stop
@@ -823,11 +883,12 @@ func (r *frameReader) load(ctx context.Context, b *frameBuf, i int) {
 		return
 	}
 	gocv.CvtColor(b.bgr, &b.gray, gocv.ColorBGRToGray)
-	if r.float {
+	b.pyr.build(b.gray, r.set.win, r.set.levels)
+	if r.set.float {
 		b.gray.ConvertTo(&b.smooth, gocv.MatTypeCV32F)
-		if r.sigma > 0 {
+		if r.set.sigma > 0 {
 			// Kernel size 0: OpenCV derives it from sigma (±3σ for float).
-			gocv.GaussianBlur(b.smooth, &b.smooth, image.Pt(0, 0), r.sigma, r.sigma, gocv.BorderReflect101)
+			gocv.GaussianBlur(b.smooth, &b.smooth, image.Pt(0, 0), r.set.sigma, r.set.sigma, gocv.BorderReflect101)
 		}
 		p, err := b.smooth.DataPtrFloat32()
 		if err != nil {

@@ -93,6 +93,10 @@ type Stats struct {
 	// Retried counts points tracked again on the full pyramid after the
 	// predicted, shallower run failed.
 	Retried int
+	// PredictLevels is the pyramid depth (levels above full resolution)
+	// LK used with prediction for each frame pair (f−1, f), at index f−1;
+	// nil with Options.NoPredict.
+	PredictLevels []int
 	// Live is the number of live tracks in each frame (after re-detection).
 	Live []int
 	// Reject is the report of the static-background and outlier checks
