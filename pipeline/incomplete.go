@@ -76,16 +76,32 @@ func reconstructIncomplete(ctx context.Context, set *track.Set, cfg Config, res 
 	if len(used) < factor.MinPoints {
 		return &InputError{errTooFewTracks(set)}
 	}
-	var rep *factor.MissingReport
+	var rep, firstRep *factor.MissingReport
+	fits := 0
 	rec, rob, err := factor.RejectTracks(ctx, m, cfg.Robust, func(ctx context.Context, m *factor.Measurements) (*factor.Reconstruction, error) {
-		r, mr, err := factor.FactorizeIncomplete(ctx, m, cfg.Factor, cfg.Missing)
+		mo := cfg.Missing
+		if fits > 0 && mo.MaxRuns == 0 {
+			// Refits after rejecting a few tracks start from the same
+			// propagated block; the optimum was verified by the first fit's
+			// restarts, so one run suffices.
+			mo.MaxRuns = 1
+		}
+		fits++
+		r, mr, err := factor.FactorizeIncomplete(ctx, m, cfg.Factor, mo)
 		if err == nil {
 			rep = mr
+			if firstRep == nil {
+				firstRep = mr
+			}
 		}
 		return r, err
 	})
 	if err != nil {
 		return err
+	}
+	if firstRep != rep {
+		// The verification by restarts belongs to the first fit.
+		rep.Verified, rep.RunsToAgree = firstRep.Verified, firstRep.RunsToAgree
 	}
 	res.Rec = rec
 	res.Missing = rep
