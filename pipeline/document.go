@@ -12,8 +12,9 @@ import (
 
 // addStageReports fills the document's optional per-stage reports and the
 // per-point uncertainties.
-func addStageReports(doc *export.Document, res *Result) {
+func addStageReports(doc *export.Document, res *Result, timing bool) {
 	d := &doc.Diagnostics
+	rawJSON := func(v any) json.RawMessage { return rawJSONTimed(v, timing) }
 	if res.Missing != nil {
 		d.MissingData = rawJSON(res.Missing)
 	}
@@ -39,7 +40,7 @@ func addStageReports(doc *export.Document, res *Result) {
 			"initial_cost_px2": s.InitialCost, "final_cost_px2": s.FinalCost,
 			"initial_rms_px": s.InitialRMS, "final_rms_px": s.FinalRMS, "noise_sigma_px": s.NoiseSigma,
 			"iterations": s.Iterations, "successful_steps": s.SuccessfulSteps, "rejected_steps": s.RejectedSteps,
-			"termination": s.Termination, "message": s.Message, "usable": s.Usable(), "brief": s.Brief(),
+			"termination": s.Termination, "message": s.Message, "usable": s.Usable(),
 			"initial_focal_px": s.InitialFocal, "final_focal_px": s.FinalFocal,
 			"initial_k1": s.InitialK1, "final_k1": s.FinalK1,
 		})
@@ -71,11 +72,18 @@ func addStageReports(doc *export.Document, res *Result) {
 	}
 }
 
-// rawJSON encodes v with every non-finite number written as null and
+// rawJSONTimed encodes v with every non-finite number written as null and
 // struct fields without a json tag named in snake_case, so a stage's report
-// can go into the JSON whatever it holds.
-func rawJSON(v any) json.RawMessage {
-	b, err := json.Marshal(plain(reflect.ValueOf(v)))
+// can go into the JSON whatever it holds. Without timing, wall-clock
+// entries (keys "seconds", "timing", "timing_s") and the thread counts of
+// this machine ("threads", "threads_used") are left out so the file is the
+// same on every run and every machine.
+func rawJSONTimed(v any, timing bool) json.RawMessage {
+	p := plain(reflect.ValueOf(v))
+	if !timing {
+		p = dropClock(p)
+	}
+	b, err := json.Marshal(p)
 	if err != nil {
 		b, _ = json.Marshal(map[string]string{"error": err.Error()})
 	}
@@ -164,4 +172,24 @@ func toKey(k reflect.Value) string {
 	}
 	b, _ := json.Marshal(k.Interface())
 	return strings.Trim(string(b), `"`)
+}
+
+// dropClock removes wall-clock entries from a plain value.
+func dropClock(v any) any {
+	switch x := v.(type) {
+	case map[string]any:
+		for k := range x {
+			switch k {
+			case "seconds", "timing", "timing_s", "threads", "threads_used":
+				delete(x, k)
+			default:
+				x[k] = dropClock(x[k])
+			}
+		}
+	case []any:
+		for i := range x {
+			x[i] = dropClock(x[i])
+		}
+	}
+	return v
 }

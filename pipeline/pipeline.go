@@ -48,6 +48,11 @@ type Config struct {
 	MaskFile string
 	ROI      [4]int
 
+	// Timing records the wall-clock time of every stage in the JSON and
+	// the report. Off by default, so the same input and settings give
+	// byte-identical files.
+	Timing bool
+
 	Out      string // output folder
 	Force    bool   // replace earlier results in Out
 	PLYASCII bool   // write PLY as ASCII instead of binary little-endian
@@ -245,6 +250,7 @@ func classify(err error) error {
 // Reconstruct factorizes a track set: it chooses the largest complete block
 // of frames × tracks, builds the measurement matrix and runs the model.
 func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, error) {
+	cfg = fixThreads(cfg)
 	res := &Result{Set: set, Timing: map[string]float64{}}
 	t0 := time.Now()
 	if cfg.Factor.Progress == nil {
@@ -322,8 +328,10 @@ func buildDocument(res *Result, cfg Config) *export.Document {
 		dropped["residual-outlier"] += n
 	}
 	doc.Diagnostics.Tracks = &export.TrackCounts{Detected: res.Set.Stats.Detected, Kept: len(res.Window.Tracks), DroppedByReason: dropped}
-	doc.Diagnostics.TimingS = res.Timing
-	addStageReports(doc, res)
+	if cfg.Timing {
+		doc.Diagnostics.TimingS = res.Timing
+	}
+	addStageReports(doc, res, cfg.Timing)
 	return doc
 }
 
@@ -335,7 +343,8 @@ func Settings(cfg Config) map[string]any {
 		"track":     toMap(cfg.Track.WithDefaults()),
 		"factor":    toMap(cfg.Factor.WithDefaults()),
 		"robust":    toMap(cfg.Robust.WithDefaults()),
-		"missing":   toMap(cfg.Missing.WithDefaults()),
+		"missing":   toMap(fixThreads(cfg).Missing.WithDefaults()),
+		"refine":    refineSettings(fixThreads(cfg).Refine),
 		"range":     toMap(cfg.Range),
 		"ply_ascii": cfg.PLYASCII,
 	}
@@ -343,6 +352,33 @@ func Settings(cfg Config) map[string]any {
 		s[k] = v
 	}
 	return s
+}
+
+// Threads is the number of goroutines the solvers use unless told
+// otherwise. Their parallel sums depend on how the work is split, so a
+// fixed count (rather than "all cores") makes the results the same on
+// every machine, whatever its number of cores.
+const Threads = 2
+
+func fixThreads(cfg Config) Config {
+	if cfg.Missing.Threads == 0 {
+		cfg.Missing.Threads = Threads
+	}
+	if cfg.Refine.Bundle.Threads == 0 {
+		cfg.Refine.Bundle.Threads = Threads
+	}
+	return cfg
+}
+
+func refineSettings(rc RefineConfig) map[string]any {
+	m := toMap(rc)
+	b := rc.Bundle.WithDefaults()
+	b.Intrinsics = nil // recorded under factor.intrinsics
+	m["bundle"] = toMap(b)
+	if rc.Unit == "" {
+		m["unit"] = "mm"
+	}
+	return m
 }
 
 // toMap turns an options struct into a JSON-ready map of its exported

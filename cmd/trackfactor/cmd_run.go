@@ -66,6 +66,7 @@ func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, erro
 		Out:      o.out.dir,
 		Force:    o.out.force,
 		PLYASCII: o.out.plyASCII,
+		Timing:   o.out.timing,
 		Producer: producer(c),
 		Progress: o.common.progress(c.App.ErrWriter),
 		// Where the flag values came from (config.go).

@@ -176,12 +176,14 @@ type outFlags struct {
 	dir      string
 	force    bool
 	plyASCII bool
+	timing   bool
 }
 
 func (f *outFlags) flags() []cli.Flag {
 	return []cli.Flag{
 		&cli.StringFlag{Name: "out", Category: "output", Aliases: []string{"o"}, Usage: "output folder (created if missing)", Destination: &f.dir},
 		&cli.BoolFlag{Name: "force", Category: "output", Usage: "replace results already in the output folder (other files there are left alone)", Destination: &f.force},
+		&cli.BoolFlag{Name: "timing", Category: "output", Usage: "record each stage's wall-clock time in the JSON and the report (outputs then differ from run to run)", Destination: &f.timing},
 		&cli.BoolFlag{Name: "ply-ascii", Category: "output", Usage: "write PLY files as ASCII instead of binary little-endian", Destination: &f.plyASCII},
 	}
 }
