@@ -19,6 +19,36 @@ type Advice struct {
 // not listed get a generic text (and lower the verdict, see Judge).
 func adviceTable() map[string]Advice {
 	return map[string]Advice{
+		"depth-order-by-convention": {
+			"Depth order chosen by convention",
+			"The affine model cannot tell which way depth runs; the result shown assumes the camera looks down on the turntable, the usual set-up.",
+			"Nothing if the camera looks down on the part; if it looks up, depth is reversed. Give --intrinsics so a perspective refinement decides from the data.",
+		},
+		"not-single-axis": {
+			"The motion is not a single-axis turn",
+			"The camera rotations stray from one common axis, so the turntable angles are only approximate.",
+			"Check that the part sat firmly on the table and did not wobble or slide; without a turntable, ignore the turntable numbers.",
+		},
+		"uneven-steps": {
+			"The turntable steps are uneven",
+			"At least one step between frames differs from the expected one by more than a quarter: a missed or doubled frame, or a slipping table.",
+			"Look at the turntable-angle plot for the odd step; recapture if the table slipped, or drop the odd frame.",
+		},
+		"camera-moved": {
+			"The camera seems to have moved",
+			"The camera translations do not fit one fixed camera looking at a turning part.",
+			"Check that the camera and the turntable were fixed during the capture.",
+		},
+		"refinement-unusable": {
+			"The refinement did not give a usable result",
+			"Bundle adjustment ended without a usable result, so the factorization is reported instead; it is less accurate.",
+			"Check the tracks for outliers (see the per-track residuals) and that the camera model fits the set-up.",
+		},
+		"turntable-fit-failed": {
+			"No turntable axis could be fitted",
+			"The rotations did not allow a single-axis fit; the camera rotations are reported as they are.",
+			"Check that the capture is a turntable sequence with enough rotation.",
+		},
 		factor.WarnPlanar: {
 			"The points lie nearly in one plane",
 			"Depth cannot be told apart from noise, so the 3D shape and the camera rotations are not reliable.",

@@ -263,29 +263,24 @@ func turntableAngles(doc *export.Document, ex Extras) (frames, angles []float64)
 	if !ok {
 		return nil, nil
 	}
+	// The turntable fit writes the angles and, beside them, the frame
+	// numbers they belong to (factor/turntable.Fit).
 	var t struct {
 		AnglesDeg []float64 `json:"angles_deg"`
-		Frames    []struct {
-			Frame    *float64 `json:"frame"`
-			AngleDeg *float64 `json:"angle_deg"`
-		} `json:"frames"`
+		Frames    []float64 `json:"frames"`
 	}
 	if json.Unmarshal(tt, &t) != nil {
 		return nil, nil
 	}
 	for i, a := range t.AnglesDeg {
 		fr := float64(i)
-		if i < len(doc.Cameras) {
+		switch {
+		case i < len(t.Frames):
+			fr = t.Frames[i]
+		case i < len(doc.Cameras):
 			fr = float64(doc.Cameras[i].Frame)
 		}
 		frames, angles = append(frames, fr), append(angles, a)
-	}
-	if len(angles) == 0 {
-		for _, e := range t.Frames {
-			if e.Frame != nil && e.AngleDeg != nil {
-				frames, angles = append(frames, *e.Frame), append(angles, *e.AngleDeg)
-			}
-		}
 	}
 	return frames, angles
 }

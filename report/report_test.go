@@ -87,7 +87,10 @@ func TestEveryCodeExplained(t *testing.T) {
 	codes := []string{factor.WarnPlanar, factor.WarnLittleRotation, factor.WarnTooFew, factor.WarnMetricFallback,
 		factor.WarnMetricFailed, factor.WarnHighResidual, factor.WarnMirror, factor.WarnIncompleteDropped,
 		factor.WarnOutliersRejected, factor.WarnDefaultIntrinsics, factor.WarnNotConverged, factor.WarnWeakPerspective,
-		factor.WarnDisconnectedViews, factor.WarnFramesUnrecovered, factor.WarnOptimumUnverified}
+		factor.WarnDisconnectedViews, factor.WarnFramesUnrecovered, factor.WarnOptimumUnverified,
+		// Codes of the refinement and turntable stages (pipeline, factor/turntable).
+		"depth-order-by-convention", "not-single-axis", "uneven-steps", "camera-moved",
+		"refinement-unusable", "turntable-fit-failed"}
 	generic := Explain("no-such-code")
 	for _, c := range codes {
 		a := Explain(c)
