@@ -123,6 +123,7 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 			demoCommand(),
 			trackCommand(),
 			factorCommand(),
+			refineCommand(),
 			validateCommand(),
 			reportCommand(),
 			batchCommand(),
