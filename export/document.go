@@ -127,6 +127,7 @@ type Diagnostics struct {
 	Mirror      json.RawMessage `json:"mirror,omitempty"`
 	Scale       json.RawMessage `json:"scale,omitempty"`
 	MissingData json.RawMessage `json:"missing_data,omitempty"`
+	Loop        json.RawMessage `json:"loop_closure,omitempty"`
 	Model       json.RawMessage `json:"model,omitempty"`
 }
 

@@ -51,5 +51,16 @@ func TestFullTurnIncomplete(t *testing.T) {
 		t.Logf("warning %s: %s", w.Code, w.Message)
 	}
 	t.Logf("runs %d verified %v", len(res.Missing.Runs), res.Missing.Verified)
+	if res.Loop == nil || res.Loop.Merged == 0 {
+		t.Error("loop closure merged no track on a full turn")
+	} else {
+		t.Logf("loop closure: %d tracks merged", res.Loop.Merged)
+	}
+	// Issue 5: with loop closure the rotation after a full turn returns to
+	// the start within 0.5° (the turntable fit's closure error: the step
+	// from the last frame back to the first against the mean step).
+	if tt := res.Refinement.Turntable; tt == nil || tt.Closure.ErrorDeg > 0.5 {
+		t.Errorf("closure error over 0.5° or no turntable fit: %+v", tt)
+	}
 	_ = factor.Orthographic
 }

@@ -41,6 +41,8 @@ type Config struct {
 	// Refine configures bundle adjustment, the turntable fit and the
 	// metric scale after the factorization.
 	Refine RefineConfig
+	// Loop configures loop closure on long sequences (track.CloseLoops).
+	Loop track.LoopOptions
 	// MaskFile is an image of the frame size; corners are detected only
 	// where it is bright. ROI, when its width and height are not zero, is
 	// a rectangle X, Y, W, H (px) outside which no corners are detected.
@@ -52,6 +54,12 @@ type Config struct {
 	// the report. Off by default, so the same input and settings give
 	// byte-identical files.
 	Timing bool
+
+	// MaxMemory is the most memory, in bytes, the reconstruction may be
+	// estimated to need (CheckMemory); 0 means DefaultMemoryFraction of
+	// the memory available when it starts. Not recorded in the settings:
+	// it changes no result.
+	MaxMemory int64
 
 	Out      string // output folder
 	Force    bool   // replace earlier results in Out
@@ -89,9 +97,11 @@ type Result struct {
 	// Refinement reports bundle adjustment, the turntable fit and the
 	// scale; nil when the factorization failed before it.
 	Refinement *Refinement
-	Doc        *export.Document
-	Files      []string           // files written, relative to Config.Out
-	Timing     map[string]float64 // seconds by stage
+	// Loop is the loop-closure report, nil when it did not run.
+	Loop   *track.LoopReport
+	Doc    *export.Document
+	Files  []string           // files written, relative to Config.Out
+	Timing map[string]float64 // seconds by stage
 }
 
 // Run tracks the input, reconstructs and writes the results.
@@ -103,7 +113,7 @@ func Run(ctx context.Context, cfg Config) (*Result, error) {
 		}
 	}
 	t0 := time.Now()
-	set, err := TrackOnly(ctx, cfg)
+	set, loop, err := trackAndClose(ctx, cfg)
 	if err != nil {
 		return nil, err
 	}
@@ -111,6 +121,13 @@ func Run(ctx context.Context, cfg Config) (*Result, error) {
 	res, err := Reconstruct(ctx, set, cfg)
 	if err != nil {
 		return nil, err
+	}
+	res.Loop = loop
+	if loop != nil {
+		res.Doc.Diagnostics.Loop = rawJSONTimed(map[string]any{
+			"frame_pairs": loop.FramePairs, "matches": loop.Matches, "verified": loop.Verified,
+			"merged": loop.Merged, "merged_pairs": loop.MergedPairs, "rejected": loop.Rejected,
+		}, cfg.Timing)
 	}
 	res.Timing["track"] = trackTime
 	if err := ctx.Err(); err != nil {
@@ -126,16 +143,45 @@ func Run(ctx context.Context, cfg Config) (*Result, error) {
 
 // TrackOnly opens the input and tracks it.
 func TrackOnly(ctx context.Context, cfg Config) (*track.Set, error) {
-	src, err := track.Open(cfg.Input, cfg.Range)
+	set, _, err := trackAndClose(ctx, cfg)
+	return set, err
+}
+
+// MinLoopFrames is the fewest frames for which loop closure is tried: a
+// point can only come back into view after a large part of a turn, which
+// takes many frames (a turn in 10° steps is 36).
+const MinLoopFrames = 36
+
+// trackAndClose tracks the input and, on long sequences, links tracks of
+// points that come back into view to their earlier selves (loop closure).
+func trackAndClose(ctx context.Context, cfg Config) (*track.Set, *track.LoopReport, error) {
+	set, src, err := trackOpen(ctx, cfg)
 	if err != nil {
-		return nil, &InputError{err}
+		return nil, nil, err
 	}
 	defer src.Close()
+	if cfg.Loop.Off || len(set.Frames) < MinLoopFrames {
+		return set, nil, nil
+	}
+	rep, err := track.CloseLoops(ctx, src, set, cfg.Loop)
+	if err != nil {
+		return nil, nil, classify(err)
+	}
+	return set, rep, nil
+}
+
+// trackOpen opens and tracks the input; the caller closes the source.
+func trackOpen(ctx context.Context, cfg Config) (*track.Set, track.Source, error) {
+	src, err := track.Open(cfg.Input, cfg.Range)
+	if err != nil {
+		return nil, nil, &InputError{err}
+	}
 	w, h := src.Size()
 	opts := cfg.Track
 	mask, err := buildMask(cfg.MaskFile, cfg.ROI, w, h)
 	if err != nil {
-		return nil, err
+		src.Close()
+		return nil, nil, err
 	}
 	if mask != nil {
 		opts.Detect.Mask = mask
@@ -146,9 +192,10 @@ func TrackOnly(ctx context.Context, cfg Config) (*track.Set, error) {
 		}
 	})
 	if err != nil {
-		return nil, classify(err)
+		src.Close()
+		return nil, nil, classify(err)
 	}
-	return set, nil
+	return set, src, nil
 }
 
 // buildMask combines a mask image and a rectangle into a detection mask
@@ -276,6 +323,9 @@ func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, erro
 		return nil, &InputError{errTooFewTracks(set)}
 	}
 	res.Window = w
+	if err := CheckMemory(w.Frames(), len(w.Tracks), w.Frames()*len(w.Tracks), false, cfg); err != nil {
+		return nil, err
+	}
 	m := CompleteMeasurements(w)
 	rec, rob, err := factor.FactorizeRejecting(ctx, m, cfg.Factor, cfg.Robust)
 	if err != nil {

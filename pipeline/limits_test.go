@@ -1,0 +1,277 @@
+package pipeline
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"os/exec"
+	"strconv"
+	"strings"
+	"syscall"
+	"testing"
+
+	"trackfactor/track"
+)
+
+func TestParseSize(t *testing.T) {
+	good := []struct {
+		in   string
+		want int64
+	}{
+		{"0", 0}, {"1048576", 1 << 20}, {"16G", 16 << 30}, {"800M", 800 << 20}, {"1.5GiB", 3 << 29},
+		{"2k", 2048}, {"3 MB", 3 << 20}, {"1t", 1 << 40}, {"512b", 512}, {" 4g ", 4 << 30},
+	}
+	for _, c := range good {
+		got, err := ParseSize(c.in)
+		if err != nil || got != c.want {
+			t.Errorf("ParseSize(%q) = %d, %v; want %d", c.in, got, err, c.want)
+		}
+	}
+	for _, in := range []string{"", "G", "-1G", "lots", "1e400", "NaN", "0x10", "16GG", "9999999T", "Inf"} {
+		if v, err := ParseSize(in); err == nil {
+			t.Errorf("ParseSize(%q) = %d, want an error", in, v)
+		} else if strings.Contains(err.Error(), "\n") {
+			t.Errorf("ParseSize(%q): error not one line: %q", in, err)
+		}
+	}
+}
+
+func TestFormatAndRoundUp(t *testing.T) {
+	for _, c := range []struct {
+		b          int64
+		text, size string
+	}{
+		{512, "512 B", "512"},
+		{1536, "1.50 KiB", "2K"},
+		{15 << 20, "15.0 MiB", "15M"},
+		{(15 << 30) + 1, "15.0 GiB", "16G"},
+		{300 << 30, "300 GiB", "300G"},
+	} {
+		if got := FormatBytes(c.b); got != c.text {
+			t.Errorf("FormatBytes(%d) = %q, want %q", c.b, got, c.text)
+		}
+		if got := roundUpSize(c.b); got != c.size {
+			t.Errorf("roundUpSize(%d) = %q, want %q", c.b, got, c.size)
+		}
+		if back, err := ParseSize(roundUpSize(c.b)); err != nil || back < c.b {
+			t.Errorf("roundUpSize(%d) = %q reads back as %d (%v), below the size", c.b, roundUpSize(c.b), back, err)
+		}
+	}
+}
+
+// The MemAvailable line of a Linux /proc/meminfo (format of
+// Documentation/filesystems/proc.rst, values in kB = KiB).
+func TestParseMemAvailable(t *testing.T) {
+	const meminfo = "MemTotal:       24683620 kB\nMemFree:        21972992 kB\nMemAvailable:   23770504 kB\nBuffers:          144540 kB\n"
+	got, err := parseMemAvailable(strings.NewReader(meminfo))
+	if err != nil || got != 23770504*1024 {
+		t.Errorf("got %d, %v; want %d", got, err, 23770504*1024)
+	}
+	for _, bad := range []string{"MemTotal: 1 kB\n", "MemAvailable: lots kB\n", "MemAvailable: 12 pages\n", ""} {
+		if _, err := parseMemAvailable(strings.NewReader(bad)); err == nil {
+			t.Errorf("%q: no error", bad)
+		}
+	}
+	if _, err := os.Stat("/proc/meminfo"); err == nil {
+		if avail, err := memAvailable(); err != nil || avail <= 0 {
+			t.Errorf("this machine's meminfo: %d, %v", avail, err)
+		}
+	}
+}
+
+// The estimate's terms, from the formula of limits.go.
+func TestEstimateMemory(t *testing.T) {
+	const f, p = 300, 2000
+	if got, want := EstimateMemory(f, p, f*p, false, false), int64(BytesPerObservation*f*p); got != want {
+		t.Errorf("complete, no refinement: %d, want %d", got, want)
+	}
+	if got, want := EstimateMemory(f, p, f*p, false, true), int64(BytesPerObservation*f*p+ReducedSystemCopies*8*36*f*f); got != want {
+		t.Errorf("complete, refined: %d, want %d", got, want)
+	}
+	if got, want := EstimateMemory(f, p, f*p/4, true, false), int64(IncompleteBytesPerObservation*f*p/4+DenseBytesPerEntry*f*p+MissingSystemCopies*8*64*f*f); got != want {
+		t.Errorf("incomplete: %d, want %d", got, want)
+	}
+	if got := EstimateMemory(1<<30, 1<<30, math.MaxInt, true, true); got != 1<<62 {
+		t.Errorf("huge sizes: %d, want the cap 2^62", got)
+	}
+}
+
+// A limit below the estimate is refused with an *InputError (exit code 3
+// in the CLI) whose one line says what is needed, the limit, and names
+// --max-memory with a value that would pass; a limit above it passes.
+func TestCheckMemory(t *testing.T) {
+	const f, p = 100, 1000
+	need := EstimateMemory(f, p, f*p, false, true)
+	err := CheckMemory(f, p, f*p, false, Config{MaxMemory: need - 1})
+	var ie *InputError
+	if !errors.As(err, &ie) {
+		t.Fatalf("got %v, want an *InputError", err)
+	}
+	msg := err.Error()
+	for _, want := range []string{"100 frames × 1000 tracks", FormatBytes(need), "--max-memory " + roundUpSize(need), "set by --max-memory"} {
+		if !strings.Contains(msg, want) {
+			t.Errorf("message %q lacks %q", msg, want)
+		}
+	}
+	if strings.Contains(msg, "\n") {
+		t.Errorf("message is not one line: %q", msg)
+	}
+	if err := CheckMemory(f, p, f*p, false, Config{MaxMemory: need}); err != nil {
+		t.Errorf("at the limit: %v", err)
+	}
+	// The square term dominates for long sequences: the hint says so.
+	err = CheckMemory(5000, 10, 50000, false, Config{MaxMemory: 1 << 20})
+	if err == nil || !strings.Contains(err.Error(), "square of the frames") || !strings.Contains(err.Error(), "--refine=false") {
+		t.Errorf("long sequence: %v", err)
+	}
+	// Without a limit given, the default is a share of what is available.
+	if limit, why, ok := MemoryLimit(0); ok && (limit <= 0 || !strings.Contains(why, "available")) {
+		t.Errorf("default limit %d (%s)", limit, why)
+	}
+}
+
+// Reconstruct refuses before any work when the limit is too low, on the
+// complete-track path and on the missing-data path, and goes ahead with
+// the default limit.
+func TestReconstructMemoryGuard(t *testing.T) {
+	for _, incomplete := range []bool{false, true} {
+		set := syntheticTracks(40, 200, incomplete, 7)
+		_, err := Reconstruct(context.Background(), set, Config{MaxMemory: 1 << 20})
+		var ie *InputError
+		if !errors.As(err, &ie) || !strings.Contains(err.Error(), "--max-memory") {
+			t.Errorf("incomplete=%v, 1 MiB limit: got %v, want the memory refusal", incomplete, err)
+		}
+		if _, err := Reconstruct(context.Background(), set, Config{}); err != nil {
+			t.Errorf("incomplete=%v, default limit: %v", incomplete, err)
+		}
+	}
+}
+
+// syntheticTracks makes the tracks of points in a ball on a turntable seen
+// by an orthographic camera 20° above it, turning 0.5° per frame (a full
+// turn in 720 frames), with 0.1 px noise: every point in every frame, or,
+// when incomplete, a full turn over the frames with each point seen only
+// while it is on the camera's side of the axis (about half the frames), so
+// no track spans the sequence.
+func syntheticTracks(frames, points int, incomplete bool, seed uint64) *track.Set {
+	rng := rand.New(rand.NewPCG(seed, 1))
+	step := 0.5
+	if incomplete {
+		step = 360.0 / float64(frames)
+	}
+	set := &track.Set{Width: 640, Height: 480, Stats: track.Stats{Ended: map[string]int{}}}
+	for f := 0; f < frames; f++ {
+		set.Frames = append(set.Frames, fmt.Sprintf("frame-%06d", f))
+	}
+	e := 20 * math.Pi / 180
+	for p := 0; p < points; p++ {
+		var X [3]float64
+		for {
+			for i := range X {
+				X[i] = 2*rng.Float64() - 1
+			}
+			if X[0]*X[0]+X[1]*X[1]+X[2]*X[2] <= 1 {
+				break
+			}
+		}
+		tr := track.Track{ID: p, RGB: [3]uint8{128, 128, 128}}
+		for f := 0; f < frames; f++ {
+			a := step * float64(f) * math.Pi / 180
+			xr := math.Cos(a)*X[0] - math.Sin(a)*X[1]
+			yr := math.Sin(a)*X[0] + math.Cos(a)*X[1]
+			if incomplete && yr > 0 {
+				continue
+			}
+			tr.Obs = append(tr.Obs, track.Observation{Frame: f,
+				X: 320 + 150*xr + 0.1*rng.NormFloat64(),
+				Y: 240 + 150*(math.Sin(e)*yr-math.Cos(e)*X[2]) + 0.1*rng.NormFloat64()})
+		}
+		if len(tr.Obs) > 0 {
+			set.Tracks = append(set.Tracks, tr)
+		}
+	}
+	set.Stats.Detected = len(set.Tracks)
+	return set
+}
+
+// memHelperEnv makes the test binary, started by TestMemoryEstimateCoversPeak,
+// reconstruct one synthetic set and exit.
+const memHelperEnv = "TF_MEMORY_HELPER"
+
+func TestMemoryHelper(t *testing.T) {
+	spec := os.Getenv(memHelperEnv)
+	if spec == "" {
+		t.Skip("helper process of TestMemoryEstimateCoversPeak")
+	}
+	var f, p int
+	var incomplete bool
+	if _, err := fmt.Sscanf(spec, "%d %d %t", &f, &p, &incomplete); err != nil {
+		t.Fatal(err)
+	}
+	if f == 0 {
+		return // the baseline: the program before any work
+	}
+	// What `trackfactor factor` does: reconstruct and write the files.
+	set := syntheticTracks(f, p, incomplete, 3)
+	cfg := Config{MaxMemory: 1 << 50, Out: t.TempDir()}
+	res, err := Reconstruct(context.Background(), set, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if incomplete != (res.Missing != nil) {
+		t.Fatalf("incomplete %v but the missing-data solver ran: %v", incomplete, res.Missing != nil)
+	}
+	if err := Write(res, cfg); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// The estimate against the operating system's count: the peak resident
+// memory (getrusage ru_maxrss) of a process that reconstructs a synthetic
+// set and writes its files, less that of the same process doing nothing,
+// must not exceed the estimate, and the estimate must not exceed three
+// times the measurement plus 64 MiB (the guard neither lets a run that
+// does not fit start nor refuses runs that fit by a wide margin; the
+// slack covers the garbage collector's timing, which makes small peaks
+// vary by tens of MiB).
+func TestMemoryEstimateCoversPeak(t *testing.T) {
+	if testing.Short() {
+		t.Skip("runs reconstructions in child processes; in the full suite only")
+	}
+	peak := func(spec string) int64 {
+		cmd := exec.Command(os.Args[0], "-test.run=^TestMemoryHelper$", "-test.count=1")
+		cmd.Env = append(os.Environ(), memHelperEnv+"="+spec, "GOMAXPROCS=2")
+		if out, err := cmd.CombinedOutput(); err != nil {
+			t.Fatalf("helper %q: %v\n%s", spec, err, out)
+		}
+		ru, ok := cmd.ProcessState.SysUsage().(*syscall.Rusage)
+		if !ok {
+			t.Skip("no resource usage on this system")
+		}
+		return ru.Maxrss << 10 // kilobytes on Linux
+	}
+	base := peak("0 0 false")
+	for _, c := range []struct {
+		f, p       int
+		incomplete bool
+	}{{200, 1500, false}, {120, 1500, true}} {
+		set := syntheticTracks(c.f, c.p, c.incomplete, 3)
+		obs := 0
+		for _, tr := range set.Tracks {
+			obs += len(tr.Obs)
+		}
+		est := EstimateMemory(c.f, len(set.Tracks), obs, c.incomplete, true)
+		used := peak(strconv.Itoa(c.f)+" "+strconv.Itoa(c.p)+" "+strconv.FormatBool(c.incomplete)) - base
+		t.Logf("%d frames × %d tracks (%d observations, incomplete %v): estimate %s, measured %s above the %s baseline",
+			c.f, len(set.Tracks), obs, c.incomplete, FormatBytes(est), FormatBytes(used), FormatBytes(base))
+		if used > est {
+			t.Errorf("%d × %d: measured %s, above the estimate %s", c.f, c.p, FormatBytes(used), FormatBytes(est))
+		}
+		if est > 3*used+64<<20 {
+			t.Errorf("%d × %d: the estimate %s is more than 3 × the measured %s + 64 MiB", c.f, c.p, FormatBytes(est), FormatBytes(used))
+		}
+	}
+}
