@@ -119,6 +119,11 @@ func leafProblems(ve *jsonschema.ValidationError) []problem {
 			// Name the missing member itself, not its parent object.
 			ptr += "/" + escapePointer(req.Missing[0])
 		}
+		if ap, ok := e.ErrorKind.(*kind.AdditionalProperties); ok {
+			// The validator lists the extra members in map order; sort
+			// them so the same file always gives the same message.
+			sort.Strings(ap.Properties)
+		}
 		msg := strings.ReplaceAll(e.ErrorKind.LocalizedString(printer), "\n", " ")
 		msg = strings.TrimPrefix(msg, rule+": ") // some messages repeat the keyword
 		out = append(out, problem{ptr: ptr, rule: rule, msg: msg})

@@ -9,6 +9,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"runtime"
+	"runtime/metrics"
 	"strconv"
 	"strings"
 	"syscall"
@@ -74,6 +75,7 @@ type streamReport struct {
 	Obs         int     `json:"observations"`
 	TrackBytes  int64   `json:"track_bytes"` // the Set's own storage
 	HeapInuse   int64   `json:"heap_inuse"`  // after a full collection
+	PeakHeap    int64   `json:"peak_heap"`   // largest heap in use seen during tracking (sampled every 10 frames)
 	MaxRSS      int64   `json:"max_rss"`     // filled in by the parent
 	FramesPerS  float64 `json:"frames_per_s"`
 	TrackSecond float64 `json:"track_s"`
@@ -110,7 +112,15 @@ func TestStreamHelper(t *testing.T) {
 		t.Fatalf("bad %s=%q", streamHelperEnv, spec)
 	}
 	t0 := time.Now()
-	set, err := TrackOnly(context.Background(), Config{Input: input, Range: track.Range{End: n}})
+	var peak int64
+	sample := []metrics.Sample{{Name: "/memory/classes/heap/objects:bytes"}}
+	progress := func(stage string, done, total int) {
+		if done%10 == 0 || done == total {
+			metrics.Read(sample)
+			peak = max(peak, int64(sample[0].Value.Uint64()))
+		}
+	}
+	set, err := TrackOnly(context.Background(), Config{Input: input, Range: track.Range{End: n}, Progress: progress})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -123,7 +133,7 @@ func TestStreamHelper(t *testing.T) {
 		obs += len(tr.Obs)
 	}
 	rep := streamReport{Frames: len(set.Frames), Tracks: len(set.Tracks), Obs: obs, TrackBytes: setBytes(set),
-		HeapInuse: int64(ms.HeapInuse), FramesPerS: float64(len(set.Frames)) / secs, TrackSecond: secs}
+		HeapInuse: int64(ms.HeapInuse), PeakHeap: peak, FramesPerS: float64(len(set.Frames)) / secs, TrackSecond: secs}
 	b, _ := json.Marshal(rep)
 	fmt.Printf("TFSTREAM %s\n", b)
 	runtime.KeepAlive(set)
@@ -180,8 +190,8 @@ func TestTrackingMemoryFlat(t *testing.T) {
 	long := trackInChild(t, dir, 300)
 	mib := func(b int64) float64 { return float64(b) / (1 << 20) }
 	for _, r := range []streamReport{short, long} {
-		t.Logf("%d frames: %d tracks, %d observations, track storage %.1f MiB, heap in use %.1f MiB, peak resident %.1f MiB, %.1f frames/s",
-			r.Frames, r.Tracks, r.Obs, mib(r.TrackBytes), mib(r.HeapInuse), mib(r.MaxRSS), r.FramesPerS)
+		t.Logf("%d frames: %d tracks, %d observations, track storage %.1f MiB, heap in use %.1f MiB after (%.1f MiB at most during tracking), peak resident %.1f MiB, %.1f frames/s",
+			r.Frames, r.Tracks, r.Obs, mib(r.TrackBytes), mib(r.HeapInuse), mib(r.PeakHeap), mib(r.MaxRSS), r.FramesPerS)
 	}
 	if short.Frames != 100 || long.Frames != 300 {
 		t.Fatalf("tracked %d and %d frames, want 100 and 300", short.Frames, long.Frames)

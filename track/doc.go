@@ -7,14 +7,16 @@
 // # Data flow
 //
 //	Source (OpenFolder | OpenVideo | Open | FromImages)
-//	   │ 8-bit BGR frames, decoded ahead in a goroutine
+//	   │ 8-bit BGR frames, decoded ahead in a goroutine that also builds
+//	   │ each frame's LK pyramid once and its smoothed float image
 //	   ▼
 //	Run: Detect (Shi–Tomasi + cornerSubPix) in frame 0
-//	   │ per frame pair: LK forward (with motion prediction, shallow
-//	   │ pyramid, deep retry), LK backward, border / eigenvalue /
-//	   │ forward–backward checks, drift-free refinement against each
-//	   │ track's first-frame patch (affine + gain/bias, inverse
-//	   │ compositional), appearance check, re-detection in empty areas
+//	   │ per frame pair: LK forward (with motion prediction, pyramid depth
+//	   │ chosen from the residual motion, deep retry), LK backward,
+//	   │ border / eigenvalue / forward–backward checks, drift-free
+//	   │ refinement against each track's first-frame patch (affine +
+//	   │ gain/bias, inverse compositional), appearance and motion checks,
+//	   │ re-detection in empty areas
 //	   ▼
 //	Reject: static background, affine-epipolar outliers (RANSAC)
 //	   ▼
@@ -38,7 +40,8 @@
 // change to run (window, pyramid levels, patch size on small frames) are
 // listed in Stats.Clamped. OpenCV's calcOpticalFlowPyrLK reports all its
 // failures as one status; Run tells them apart (left the image, low
-// eigenvalue, not found).
+// eigenvalue, not found). Stats.DroppedObs counts the dropped observations
+// by the same reasons.
 //
 // # Options
 //
@@ -52,6 +55,15 @@
 //
 // gocv Mats hold C memory: Sources own the Mats they return only until the
 // next Read into the same Mat; Run closes everything it allocates. Run uses
-// OpenCV's own threads inside LK and two goroutines for refinement
-// (RefineOptions.Workers); a Source is used from one goroutine at a time.
+// OpenCV's own threads inside LK, one goroutine decoding ahead, and a fixed
+// pool of goroutines for refinement (RefineOptions.Workers, started once
+// per Run); a Source is used from one goroutine at a time.
+//
+// # OpenCV shim
+//
+// gocv v0.31.0 lacks buildOpticalFlowPyramid, calcOpticalFlowPyrLK on
+// pyramids and cornerMinEigenVal; cvshim.cpp (cgo, pkg-config opencv4, the
+// OpenCV gocv links) provides them, and an AVX2 kernel for the
+// refinement's per-pixel sums, used when the CPU has AVX2 and FMA (the
+// plain Go loop otherwise; TestVectorKernelMatchesGo checks they agree).
 package track

@@ -185,3 +185,40 @@ func warpSequenceSS(tb testing.TB, img gocv.Mat, n int, affine func(k int) [6]fl
 	}
 	return s
 }
+
+// occluderFrames composites an invented sliding occluder over frames: a
+// flat grey (110) vertical bar of width w px whose left edge is at
+// x0 + v·f in frame f, anti-aliased by area coverage, with Gaussian noise
+// of σ = 1 grey level (seeded) so that it looks like the rest of the frame.
+// cov(f, x) is the bar's coverage of the pixel column centred at x.
+func occluderFrames(imgs []image.Image, x0, v, w float64, seed int64) (out []image.Image, cov func(f int, x float64) float64) {
+	cov = func(f int, x float64) float64 {
+		a := x0 + v*float64(f)
+		return math.Max(0, math.Min(x+0.5, a+w)-math.Max(x-0.5, a))
+	}
+	rng := rand.New(rand.NewSource(seed))
+	for f, im := range imgs {
+		b := im.Bounds()
+		dst := image.NewRGBA(image.Rect(0, 0, b.Dx(), b.Dy()))
+		for y := 0; y < b.Dy(); y++ {
+			for x := 0; x < b.Dx(); x++ {
+				r, g, bb, _ := im.At(b.Min.X+x, b.Min.Y+y).RGBA()
+				c := math.Min(1, cov(f, float64(x)))
+				px := [3]float64{float64(r >> 8), float64(g >> 8), float64(bb >> 8)}
+				if c > 0 {
+					n := rng.NormFloat64()
+					for k := range px {
+						px[k] = (1-c)*px[k] + c*(110+n)
+					}
+				}
+				o := dst.PixOffset(x, y)
+				for k := range px {
+					dst.Pix[o+k] = uint8(math.Max(0, math.Min(255, math.Round(px[k]))))
+				}
+				dst.Pix[o+3] = 255
+			}
+		}
+		out = append(out, dst)
+	}
+	return out, cov
+}

@@ -38,25 +38,40 @@ func warpErrors(t *testing.T, src *matSource, affine func(k int) [6]float64, opt
 	return errs, maxDX, maxDY, set
 }
 
-// TestKnownWarp tracks a real photograph (opencv-doc graf1.png, a
-// graffiti wall, 800×640) through known sub-pixel warps. Each frame is
-// made like a camera image: the photograph upsampled 4× (bicubic), warped
-// with OpenCV's warpAffine (bilinear), averaged back down (INTER_AREA), so
-// frame 0 is resampled like the others and the warp's own interpolation
-// blur is a quarter pixel. (Warping at full resolution puts a different
-// blur, or with bicubic a phase shift of up to 0.05 px, measured here, into
-// every frame, which is the generator's error, not the tracker's.)
+// TestKnownWarp tracks real photographs from Debian's opencv-doc package
+// (examples/data) through known sub-pixel warps: graf1.png (a graffiti
+// wall, 800×640, PNG), baboon.jpg (the mandrill, 512×512, fine fur
+// texture, JPEG) and building.jpg (a façade, 868×600, repeated man-made
+// structure, JPEG). Each frame is made like a camera image: the photograph
+// upsampled 4× (bicubic), warped with OpenCV's warpAffine (bilinear),
+// averaged back down (INTER_AREA), so frame 0 is resampled like the others
+// and the warp's own interpolation blur is a quarter pixel. (Warping at
+// full resolution puts a different blur, or with bicubic a phase shift of
+// up to 0.05 px, measured here, into every frame, which is the generator's
+// error, not the tracker's.) Warps per frame, 5 frames: shift (0.37, 0)
+// px; shift (1.63, −0.71) px; rotation 0.6° about the centre; scaling
+// 1 % about the centre.
 //
-// Tolerances: median end-point error ≤ 0.05 px and 99th percentile
-// ≤ 0.3 px after 5 frames (sub-pixel accuracy of pyramidal LK on such
-// warps is common practice). Plain frame-to-frame LK (refinement off) is
-// held to the same bounds on translations; on rotation and scaling its
-// translation-only window is biased by the patch's own rotation every frame
-// (about 0.05 px per frame here), which the affine refinement removes, so
-// plain LK's numbers are only reported there.
+// Tolerances (issue 3): median end-point error ≤ 0.05 px and 99th
+// percentile ≤ 0.3 px after 5 frames (sub-pixel accuracy of pyramidal LK
+// on such warps is common practice). Plain frame-to-frame LK (refinement
+// off) is held to the same bounds on translations; on rotation and
+// scaling its translation-only window is biased by the patch's own
+// rotation every frame (about 0.05 px per frame here), which the affine
+// refinement removes, so plain LK's numbers are only reported there. Each
+// failure names the photograph and the warp.
 func TestKnownWarp(t *testing.T) {
-	img := gocv.IMRead(extData(t, "graf1.png"), gocv.IMReadColor)
+	for _, photo := range []string{"graf1.png", "baboon.jpg", "building.jpg"} {
+		t.Run(photo, func(t *testing.T) { knownWarp(t, photo) })
+	}
+}
+
+func knownWarp(t *testing.T, photo string) {
+	img := gocv.IMRead(extData(t, photo), gocv.IMReadColor)
 	defer img.Close()
+	if img.Empty() {
+		t.Fatalf("cannot decode %s", photo)
+	}
 	cx, cy := float64(img.Cols()-1)/2, float64(img.Rows()-1)/2
 	cases := []struct {
 		name   string
@@ -84,13 +99,13 @@ func TestKnownWarp(t *testing.T) {
 				opts := Options{Refine: RefineOptions{Off: !refine}, Reject: RejectOptions{Off: true}}
 				errs, mdx, mdy, set := warpErrors(t, src, tc.affine, opts)
 				med, p99 := percentile(errs, 50), percentile(errs, 99)
-				t.Logf("%d tracks: median %.4f px, p99 %.4f px, max |dx| %.3f, max |dy| %.3f, ended %v", len(errs), med, p99, mdx, mdy, set.Stats.Ended)
+				t.Logf("%s, %s: %d tracks: median %.4f px, p99 %.4f px, max |dx| %.3f, max |dy| %.3f, ended %v", photo, name, len(errs), med, p99, mdx, mdy, set.Stats.Ended)
 				checkInvariants(t, set)
-				if len(errs) < 900 {
-					t.Fatalf("only %d tracks; expected most of 1000 corners to survive a small warp", len(errs))
+				if len(errs) < 500 {
+					t.Fatalf("%s, %s: only %d tracks; expected most corners to survive a small warp", photo, name, len(errs))
 				}
 				if (refine || tc.shift) && (med > 0.05 || p99 > 0.3) {
-					t.Errorf("median %.4f px (limit 0.05), p99 %.4f px (limit 0.3)", med, p99)
+					t.Errorf("%s, %s: median %.4f px (limit 0.05), p99 %.4f px (limit 0.3)", photo, name, med, p99)
 				}
 				if tc.xOnly {
 					// x/y convention: the warp moved x only. Rows and
@@ -103,7 +118,7 @@ func TestKnownWarp(t *testing.T) {
 						dxs = append(dxs, math.Abs(b.X-a.X-0.37*float64(b.Frame-a.Frame)))
 					}
 					if percentile(dys, 50) > 0.05 || percentile(dys, 99) > 0.3 || percentile(dxs, 50) > 0.05 || percentile(dxs, 99) > 0.3 {
-						t.Errorf("shift in x: y motion median %.3f p99 %.3f, x error median %.3f p99 %.3f (limits 0.05, 0.3)",
+						t.Errorf("%s, shift in x: y motion median %.3f p99 %.3f, x error median %.3f p99 %.3f (limits 0.05, 0.3)", photo,
 							percentile(dys, 50), percentile(dys, 99), percentile(dxs, 50), percentile(dxs, 99))
 					}
 				}
@@ -149,6 +164,28 @@ func checkInvariants(t *testing.T, set *Set) {
 	}
 	if len(set.Stats.Live) != len(set.Frames) {
 		t.Errorf("Stats.Live has %d entries for %d frames", len(set.Stats.Live), len(set.Frames))
+	}
+	// Every observation is kept or counted as dropped: each track live
+	// after frame f either observes f+1 or fails, and each detected corner
+	// records its first observation.
+	kept, dropped, attempts := 0, 0, set.Stats.Detected
+	for _, tr := range set.Tracks {
+		kept += len(tr.Obs)
+	}
+	for _, n := range set.Stats.DroppedObs {
+		dropped += n
+	}
+	for _, n := range set.Stats.Live[:max(0, len(set.Stats.Live)-1)] {
+		attempts += n
+	}
+	if kept+dropped != attempts {
+		t.Errorf("observations: %d kept + %d dropped %v ≠ %d detected + %d live-track attempts",
+			kept, dropped, set.Stats.DroppedObs, set.Stats.Detected, attempts-set.Stats.Detected)
+	}
+	for r, n := range set.Stats.Ended {
+		if r != DropTooShort && set.Stats.DroppedObs[r] < n {
+			t.Errorf("%d tracks ended with %s but only %d observations dropped for it", n, r, set.Stats.DroppedObs[r])
+		}
 	}
 }
 
@@ -289,7 +326,12 @@ func TestOptionsValidate(t *testing.T) {
 		{Options{Detect: DetectOptions{Quality: 1.5}}, "detect Quality 1.5 is outside [0,1)"},
 		{Options{Detect: DetectOptions{BlockSize: 4}}, "detect BlockSize 4 must be odd"},
 		{Options{Refine: RefineOptions{MinNCC: 1}}, "refine MinNCC 1 must be below 1"},
-		{Options{Refine: RefineOptions{HalfPatch: 1}}, "refine HalfPatch 1 must be at least 2"},
+		{Options{Refine: RefineOptions{HalfPatch: 1}}, "refine HalfPatch 1 must be in 2..32"},
+		{Options{Refine: RefineOptions{HalfPatch: 33}}, "refine HalfPatch 33 must be in 2..32"},
+		{Options{PredictLevels: 11}, "PredictLevels 11 must be at most 10"},
+		{Options{PredictCapture: math.NaN()}, "PredictCapture NaN must be a positive number"},
+		{Options{MotionCheckPx: math.Inf(1)}, "MotionCheckPx +Inf must be a number of pixels"},
+		{Options{MotionCheckFactor: -1}, "MotionCheckFactor -1 must be a positive factor"},
 		{Options{Reject: RejectOptions{Confidence: 1}}, "reject Confidence 1 must be in (0,1)"},
 		{Options{Reject: RejectOptions{MinTracks: 3}}, "reject MinTracks 3 must be at least 5"},
 	} {
@@ -354,7 +396,7 @@ func TestPrefetchSame(t *testing.T) {
 // TestWithDefaultsIdempotent: the CLI fills in defaults (WithDefaults) and
 // Run fills them in again; "off" values must survive both.
 func TestWithDefaultsIdempotent(t *testing.T) {
-	o := Options{FBThreshold: -1, RedetectEvery: -1, RedetectBelow: -1, Prefetch: -1,
+	o := Options{FBThreshold: -1, RedetectEvery: -1, RedetectBelow: -1, Prefetch: -1, PredictLevels: -1, MotionCheckPx: -1, TrimEnd: -1,
 		Detect: DetectOptions{MinDistance: -1, SubPixHalfWin: -1},
 		Refine: RefineOptions{MinNCC: -1, Sigma: -1}}
 	once := o.withDefaults()
@@ -362,10 +404,11 @@ func TestWithDefaultsIdempotent(t *testing.T) {
 	if fmt.Sprintf("%+v", once) != fmt.Sprintf("%+v", twice) {
 		t.Errorf("withDefaults not idempotent:\n%+v\n%+v", once, twice)
 	}
-	if twice.Detect.MinDistance >= 0 || twice.Refine.MinNCC >= 0 || twice.FBThreshold >= 0 {
+	if twice.Detect.MinDistance >= 0 || twice.Refine.MinNCC >= 0 || twice.FBThreshold >= 0 || twice.PredictLevels >= 0 || twice.MotionCheckPx >= 0 || twice.TrimEnd >= 0 {
 		t.Errorf("an off value became a default: %+v", twice)
 	}
-	if d := (Options{}).withDefaults(); d.Window != 21 || d.Levels != 3 || d.Detect.MaxCorners != 1000 || d.FBThreshold != 0.5 || d.RedetectEvery != 5 || d.MinLength != 2 {
+	if d := (Options{}).withDefaults(); d.Window != 21 || d.Levels != 3 || d.Detect.MaxCorners != 1000 || d.FBThreshold != 0.5 || d.RedetectEvery != 5 || d.MinLength != 2 ||
+		d.RedetectBelow != 0.85 || d.PredictLevels != 0 || d.PredictCapture != 2 || d.MotionCheckPx != 2 || d.MotionCheckFactor != 3 || d.TrimEnd != 1 || d.Refine.Epsilon != 0.05 {
 		t.Errorf("defaults differ from the documented ones: %+v", d)
 	}
 }

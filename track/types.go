@@ -72,6 +72,7 @@ const (
 	DropForwardBack = "forward-backward"
 	DropAppearance  = "appearance-drift"
 	DropOutlier     = "outlier"
+	DropMotion      = "motion-jump" // moved unlike its prediction (Options.MotionCheckPx)
 	DropStatic      = "static-background"
 	DropIncomplete  = "incomplete" // not seen in every frame (complete-track models only)
 	DropTooShort    = "too-short"  // fewer observations than the minimum track length
@@ -99,6 +100,15 @@ type Stats struct {
 	PredictLevels []int
 	// Live is the number of live tracks in each frame (after re-detection).
 	Live []int
+	// DroppedObs counts observations dropped, by reason (the Drop*
+	// constants): for a track ended while tracking, the observation it
+	// failed to make plus any cut from its end (Options.TrimEnd); for
+	// tracks removed or cut after tracking (too short, static background,
+	// outlier), every observation removed from the Set. So
+	// Σ len(Obs) over Tracks + Σ DroppedObs = Detected + Σ Live[f] for
+	// f < last frame (each live track either observes the next frame or
+	// fails).
+	DroppedObs map[string]int
 	// Reject is the report of the static-background and outlier checks
 	// (nil when they were off).
 	Reject *RejectReport

@@ -62,13 +62,14 @@ func runCommand() *cli.Command {
 
 func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, error) {
 	cfg := pipeline.Config{
-		Input:    input,
-		Out:      o.out.dir,
-		Force:    o.out.force,
-		PLYASCII: o.out.plyASCII,
-		Timing:   o.out.timing,
-		Producer: producer(c),
-		Progress: o.common.progress(c.App.ErrWriter),
+		Input:     input,
+		Out:       o.out.dir,
+		Force:     o.out.force,
+		PLYASCII:  o.out.plyASCII,
+		Timing:    o.out.timing,
+		MaxMemory: o.out.maxBytes,
+		Producer:  producer(c),
+		Progress:  o.common.progress(c.App.ErrWriter),
 		// Where the flag values came from (config.go).
 		Settings: map[string]any{"config": configOf(c).asSettings()},
 	}
@@ -115,7 +116,9 @@ func printSummary(w io.Writer, res *pipeline.Result, out string) {
 	fmt.Fprintf(w, "tracks      %d kept of %d detected corners; ended or left out: %s\n", len(res.Window.Tracks), set.Stats.Detected, drop)
 	fmt.Fprintf(w, "model       %s\n", rec.Model)
 	fmt.Fprintf(w, "residual    %.3f px RMS (expected from noise %.3f px; noise σ ≈ %.3f px)\n", d.RMS, d.ExpectedRMS, d.NoiseSigma)
-	fmt.Fprintf(w, "rotation    views span %.1f°; rank gap σ3/σ4 = %.3g\n", d.RotationSpreadDeg, d.RankGap)
+	if d.RankGap > 0 || d.RotationSpreadDeg > 0 {
+		fmt.Fprintf(w, "rotation    views span %.1f°; rank gap σ3/σ4 = %.3g\n", d.RotationSpreadDeg, d.RankGap)
+	}
 	if r := res.Refinement; r != nil {
 		switch {
 		case r.Summary != nil:

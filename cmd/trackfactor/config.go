@@ -242,7 +242,15 @@ func loadConfig(path string) (map[string]any, error) {
 func configFor(all map[string]any, cmd *cli.Command, known, commands map[string]bool, path string) (map[string]any, error) {
 	out := map[string]any{}
 	var sections []string
-	for k, v := range all {
+	// Visit keys in sorted order so the same file always gives the same
+	// message (map order is random).
+	keys := make([]string, 0, len(all))
+	for k := range all {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	for _, k := range keys {
+		v := all[k]
 		nk := normKey(k)
 		if commands[k] {
 			if _, ok := v.(map[string]any); !ok {
@@ -263,7 +271,14 @@ func configFor(all map[string]any, cmd *cli.Command, known, commands map[string]
 		if s != cmd.Name {
 			continue
 		}
-		for k, v := range all[s].(map[string]any) {
+		sub := all[s].(map[string]any)
+		subKeys := make([]string, 0, len(sub))
+		for k := range sub {
+			subKeys = append(subKeys, k)
+		}
+		sort.Strings(subKeys)
+		for _, k := range subKeys {
+			v := sub[k]
 			nk := normKey(k)
 			if lookupNorm(cmd, nk) == nil || nk == "config" {
 				return nil, usagef("config %s: %s.%s is not a flag of %s; see trackfactor %s --help", path, s, k, s, s)

@@ -173,10 +173,12 @@ func (f *factorFlags) options() (factor.Options, error) {
 }
 
 type outFlags struct {
-	dir      string
-	force    bool
-	plyASCII bool
-	timing   bool
+	dir       string
+	force     bool
+	plyASCII  bool
+	timing    bool
+	maxMemory string
+	maxBytes  int64 // maxMemory parsed by validate
 }
 
 func (f *outFlags) flags() []cli.Flag {
@@ -185,6 +187,7 @@ func (f *outFlags) flags() []cli.Flag {
 		&cli.BoolFlag{Name: "force", Category: "output", Usage: "replace results already in the output folder (other files there are left alone)", Destination: &f.force},
 		&cli.BoolFlag{Name: "timing", Category: "output", Usage: "record each stage's wall-clock time in the JSON and the report (outputs then differ from run to run)", Destination: &f.timing},
 		&cli.BoolFlag{Name: "ply-ascii", Category: "output", Usage: "write PLY files as ASCII instead of binary little-endian", Destination: &f.plyASCII},
+		&cli.StringFlag{Name: "max-memory", Category: "limits", Usage: fmt.Sprintf("refuse a reconstruction estimated to need more memory than this, e.g. 16G or 800M (0 = %.0f %% of the memory available when the run starts)", 100*pipeline.DefaultMemoryFraction), Value: "0", Destination: &f.maxMemory},
 	}
 }
 
@@ -195,6 +198,11 @@ func (f *outFlags) validate() error {
 	if st, err := os.Stat(f.dir); err == nil && !st.IsDir() {
 		return usagef("-o %s is a file, not a folder; name a folder", f.dir)
 	}
+	b, err := pipeline.ParseSize(f.maxMemory)
+	if err != nil {
+		return usagef("--max-memory: %v (0 = %.0f %% of the available memory)", err, 100*pipeline.DefaultMemoryFraction)
+	}
+	f.maxBytes = b
 	return nil
 }
 
