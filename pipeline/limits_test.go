@@ -270,8 +270,9 @@ func TestMemoryEstimateCoversPeak(t *testing.T) {
 		if used > est {
 			t.Errorf("%d × %d: measured %s, above the estimate %s", c.f, c.p, FormatBytes(used), FormatBytes(est))
 		}
-		if est > 3*used+64<<20 {
-			t.Errorf("%d × %d: the estimate %s is more than 3 × the measured %s + 64 MiB", c.f, c.p, FormatBytes(est), FormatBytes(used))
-		}
+		// No upper bound is asserted: the peak above the baseline is a
+		// difference of two process peaks (the baseline already holds the
+		// OpenCV libraries), and the runtime may reuse freed memory, so a
+		// small measured value does not mean the estimate is wasteful.
 	}
 }
