@@ -244,15 +244,38 @@ var benchCases = []struct {
 //
 // Goal (issue 3): the default tracker at ≥ 1.6× the frames/s of
 // BenchmarkPlainLoop on the same frames, with as many tracks (within 1 %)
-// and positions as accurate (TestBenchParity checks these two).
+// and positions as accurate (TestBenchParity checks these two, and
+// BenchmarkVsPlain measures the ratio with both loops under the same
+// load).
 //
-// Measured on the 2-core development machine (AMD EPYC, OpenCV 4.6.0),
-// frames/s, -benchtime 10x, best of 3 (other work shared the machine):
+// Measured on the 2-core development machine (AMD EPYC, OpenCV 4.6.0)
+// while other work kept its load average at 4–10, so wall-clock rates
+// swing by 2× from run to run; ranges over 3 rounds, -benchtime 10x.
+// "Before" is the tracker as committed before this work (OpenCV building
+// pyramids in every LK call, one prediction level, the Go refinement
+// kernel, refinement Epsilon 0.005), run on this same benchmark:
 //
-//	                     before               after
-//	warp/default         TODO
-//	warp/lk              TODO
-//	plain loop (warp)    TODO
+//	                               before            after
+//	VsPlain x-plain (interleaved)  0.87–0.96         1.26–1.61 (median per run 1.32–1.35)
+//	warp/default cpu-ms/frame      26–38             17.5–24
+//	warp/default frames/s          13–47             27–102
+//	warp/lk cpu-ms/frame           15.5–22           12.6–19
+//	plain loop cpu-ms/frame        23–35 (the same code in both)
+//	plain loop frames/s            17–57
+//	warp/default tracks/pair       940.9             933.0
+//	warp/default error median/p99  0.0317/0.2264 px  0.0321/0.2268 px
+//
+// (the plain loop: 857.5 points per pair, errors 0.0249/0.1197 px over a
+// single pair). So the goal is not shown on this shared machine: one
+// interleaved round reached 1.61×, the others 1.26–1.38×. Under load the
+// gain from using both cores shrinks towards the CPU-time ratio (about
+// 1.3); on the quietest separate rounds the tracker reached 102 frames/s
+// at 17.5 CPU-ms per frame against the plain loop's best 57 frames/s. An
+// idle machine is needed to settle it. Per-frame costs measured in
+// isolation (CPU time): PNG
+// decoding 4.5 ms (both loops), building one pyramid 0.29 ms, LK on 917
+// points at full resolution with prediction 1.7 ms per direction, one
+// refinement pass 0.75 µs per point with the AVX2 kernel (1.34 µs in Go).
 func BenchmarkTrack640x480(b *testing.B) {
 	outer := b
 	for _, sq := range []struct {
