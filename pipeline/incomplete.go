@@ -72,10 +72,13 @@ func IncompleteMeasurements(set *track.Set, minViews int) (*factor.Measurements,
 // outputs, exactly the observations the reconstruction used: recovered
 // frames and tracks, rejected observations removed.
 func reconstructIncomplete(ctx context.Context, set *track.Set, cfg Config, res *Result) error {
-	if p, n := countViews(set, minViews(len(set.Frames))); p >= factor.MinPoints {
-		if err := CheckMemory(len(set.Frames), p, n, true, cfg); err != nil {
-			return err
-		}
+	// Count before building: the matrix of no track at all cannot be made.
+	p, n := countViews(set, minViews(len(set.Frames)))
+	if p < factor.MinPoints {
+		return &InputError{errTooFewTracks(set)}
+	}
+	if err := CheckMemory(len(set.Frames), p, n, true, cfg); err != nil {
+		return err
 	}
 	m, used := IncompleteMeasurements(set, minViews(len(set.Frames)))
 	if len(used) < factor.MinPoints {

@@ -13,8 +13,9 @@ import (
 )
 
 // Memory guard. A reconstruction's memory grows with the observations
-// (frames × tracks when every track is complete) and, through the reduced
-// camera system of bundle adjustment, with the square of the frames. A
+// (frames × tracks when every track is complete) and, through the dense
+// camera systems of bundle adjustment and of the missing-data solver, with
+// the square of the frames. A
 // long sequence with many tracks can need more memory than the machine
 // has; rather than let the operating system kill the run (or let it swap
 // for hours), Reconstruct estimates the peak before building the
@@ -30,7 +31,8 @@ import (
 //	+ DenseBytesPerEntry·F·P          (incomplete tracks) the dense 2F×P matrix, its mask and the
 //	                                  missing-data solver's weights
 //	+ MissingSystemCopies·8·(8F)²     (incomplete tracks) the missing-data solver's normal equations on
-//	                                  8 camera unknowns per frame: one per thread and the one solved
+//	                                  8 camera unknowns per frame: one per thread, the system solved,
+//	                                  its Cholesky factor, and the collector's headroom
 //	+ ReducedSystemCopies·8·(6F)²     (refinement on) bundle adjustment's reduced camera system on 6
 //	                                  parameters per frame: one per thread, its Cholesky factor, the covariance
 //
@@ -41,18 +43,21 @@ import (
 // before any work, most of it the OpenCV libraries) on synthetic turntable
 // tracks, rounded up: complete tracks of 50 × 500, 50 × 2000, 200 × 500,
 // 200 × 2000, 500 × 300, 1000 × 200 and 100 × 10 000 frames × tracks (the
-// estimate is 1.2 to 2 times the measured peak), and a full turn of 360
-// frames × 3000 tracks each seen in half the frames (1.1 times). Up to 100
-// frames the missing-data solver runs two restarts at once with one more
-// unknown per camera, up to 48 MiB more than the formula, within the
-// margin the default limit leaves. TestMemoryEstimateCoversPeak checks the
-// estimate against the operating system's count.
+// estimate is 1.2 to 2 times the measured peak), and tracks of the
+// synthetic part turning 1° per frame, each seen in about half a turn:
+// 360 frames × 3000 tracks (1.5 times) and 1000 frames × 4790 tracks of
+// `trackfactor run` (4.3 GiB estimated, 3.75 GiB measured through the
+// missing-data solver and into bundle adjustment). Up to 100 frames the
+// missing-data solver runs two restarts at once with one more unknown per
+// camera, up to 48 MiB more than the formula, within the margin the
+// default limit leaves. TestMemoryEstimateCoversPeak checks the estimate
+// against the operating system's count.
 const (
 	BytesPerObservation           = 400
 	IncompleteBytesPerObservation = 400
 	DenseBytesPerEntry            = 50
 	MissingUnknownsPerFrame       = 8
-	MissingSystemCopies           = 3
+	MissingSystemCopies           = 6
 	ReducedSystemCopies           = 4
 	// DefaultMemoryFraction is the share of the memory available when the
 	// run starts (MemAvailable of /proc/meminfo) that the limit is by
@@ -110,8 +115,11 @@ func CheckMemory(frames, tracks, observations int, dense bool, cfg Config) error
 		return nil
 	}
 	hint := "use fewer frames (--step, --end) or fewer tracks (--corners)"
-	if !cfg.Refine.Off && 2*EstimateMemory(frames, 0, 0, false, true) > need {
-		hint = "use fewer frames (--step, --end; the refinement's memory grows with the square of the frames) or turn the refinement off (--refine=false)"
+	if 2*EstimateMemory(frames, 0, 0, dense, !cfg.Refine.Off) > need {
+		hint = "use fewer frames (--step, --end): the solvers' memory grows with the square of the frames"
+		if !cfg.Refine.Off {
+			hint += "; turning the refinement off (--refine=false) saves " + FormatBytes(EstimateMemory(frames, 0, 0, false, true))
+		}
 	}
 	return &InputError{fmt.Errorf("pipeline: reconstructing %d frames × %d tracks (%d observations) needs about %s of memory, more than the limit of %s (%s); raise the limit with --max-memory %s if the machine has that much, or %s",
 		frames, tracks, observations, FormatBytes(need), FormatBytes(limit), why, roundUpSize(need), hint)}

@@ -252,7 +252,10 @@ func WriteTrackFile(path string, set *track.Set, withQuality, force bool) error 
 	if err := track.WriteCSV(&buf, set, withQuality); err != nil {
 		return err
 	}
-	return export.WriteFileAtomic(path, buf.Bytes(), 0o644)
+	if err := export.WriteFileAtomic(path, buf.Bytes(), 0o644); err != nil {
+		return outputError(path, err)
+	}
+	return nil
 }
 
 // FromTrackFile reads a track CSV and reconstructs from it; width and
@@ -532,16 +535,19 @@ func Write(res *Result, cfg Config) (err error) {
 	for _, f := range files {
 		w, err := st.Create(f.name)
 		if err != nil {
-			return err
+			return outputError(filepath.Join(cfg.Out, f.name), err)
 		}
 		if err := f.write(w); err != nil {
 			w.Close()
-			return fmt.Errorf("pipeline: writing %s: %w", filepath.Join(cfg.Out, f.name), err)
+			return outputError(filepath.Join(cfg.Out, f.name), err)
 		}
 		if err := w.Close(); err != nil {
-			return fmt.Errorf("pipeline: writing %s: %w", filepath.Join(cfg.Out, f.name), err)
+			return outputError(filepath.Join(cfg.Out, f.name), err)
 		}
 		res.Files = append(res.Files, f.name)
 	}
-	return st.Commit()
+	if err := st.Commit(); err != nil {
+		return outputError(cfg.Out, err)
+	}
+	return nil
 }

@@ -208,7 +208,7 @@ headline() {
 					"the tracks only (about 32 B per observation): frames are decoded, tracked and released"
 			else
 				row "peak memory, trackfactor run" "$n frames 640×480 (1° per frame)" "$val" \
-					"400 B per observation + 32·(6F)² B for bundle adjustment (+ the missing-data solver's 24·(8F)² B for incomplete tracks): pipeline/limits.go"
+					"400 B per observation + 32·(6F)² B for bundle adjustment (+ 50 B per frame × track and 48·(8F)² B for the missing-data solver on incomplete tracks): pipeline/limits.go"
 			fi
 		done
 	done

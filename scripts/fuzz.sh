@@ -27,6 +27,7 @@ targets=(
 	"./export FuzzReadJSON"               # reconstruction.json into a document
 	"./factor FuzzParseIntrinsics"        # intrinsics: our JSON/YAML, OpenCV FileStorage YAML
 	"./cmd/trackfactor FuzzConfigFile"    # --config files (YAML, TOML)
+	"./pipeline FuzzReconstructCSV"       # a track file through the whole reconstruction (trackfactor factor)
 )
 
 want=("$@")

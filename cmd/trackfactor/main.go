@@ -92,7 +92,7 @@ func exitCode(err error) int {
 	case errors.As(err, &ie):
 		return exitInput
 	case errors.Is(err, factor.ErrTooFew), errors.Is(err, factor.ErrLittleRotation),
-		errors.Is(err, factor.ErrMetricUpgrade), errors.Is(err, factor.ErrIncomplete):
+		errors.Is(err, factor.ErrMetricUpgrade), errors.Is(err, factor.ErrIncomplete), errors.Is(err, factor.ErrDisconnected):
 		return exitUnsolvable
 	}
 	// urfave/cli reports unknown flags and the like as plain errors.
