@@ -40,8 +40,9 @@
 // rotated so camera 0 is the identity. Finally the orthographic least-squares
 // problem min Σ‖w̃_fp − A_f X_p‖² is refined by block-coordinate descent:
 // structure in closed form given the cameras, X = (Σ A_fᵀA_f)⁻¹ Σ A_fᵀ w̃_f,
-// and cameras by orthogonal Procrustes given the structure (A_f = polar
-// factor of W̃_f Sᵀ); every step lowers the cost.
+// and cameras by Gauss–Newton steps on each rotation given the structure
+// (the polar factor of W̃_f Sᵀ would be optimal only when SSᵀ ∝ I; see
+// rotationGNStep and rotationStepB); every step lowers the cost.
 //
 // # Large matrices
 //

@@ -295,27 +295,8 @@ func rotationFromRows(r [2][3]float64) [3][3]float64 {
 	return [3][3]float64{r[0], r[1], cross3(r[0], r[1])}
 }
 
-// orthoStructure solves X_p = (Σ_f A_fᵀA_f)⁻¹ Σ_f A_fᵀ w̃_fp for all p at
-// once (complete data): S = H⁻¹ Aᵀ W̃ with A the stacked 2×3 camera rows.
-func orthoStructure(rots [][3][3]float64, wc *mat.Dense, S *mat.Dense) error {
-	f := len(rots)
-	A := mat.NewDense(2*f, 3, nil)
-	for i, R := range rots {
-		A.SetRow(2*i, R[0][:])
-		A.SetRow(2*i+1, R[1][:])
-	}
-	var H mat.Dense
-	H.Mul(A.T(), A)
-	var AtW mat.Dense
-	AtW.Mul(A.T(), wc)
-	var chol mat.Cholesky
-	if !chol.Factorize(mat.NewSymDense(3, H.RawMatrix().Data)) {
-		return fmt.Errorf("factor: %w: the viewing directions are all parallel", ErrLittleRotation)
-	}
-	return chol.SolveTo(S, &AtW)
-}
-
-// orthoCameras updates every camera given the structure. The best 2×3
+// rotationGNStep takes one step updating an orthographic camera given the
+// structure. The best 2×3
 // block with orthonormal rows is not the polar factor of W̃_f Sᵀ unless
 // SSᵀ ∝ I (the "unbalanced" Procrustes problem has no closed form), so each
 // rotation takes Gauss–Newton steps on R ← R·exp([δ]×). With A the first two
@@ -327,32 +308,9 @@ func orthoStructure(rots [][3][3]float64, wc *mat.Dense, S *mat.Dense) error {
 //
 // (J_p = A[X_p]×, the derivative of the residual w_p − A(I+[δ]×)X_p), so a
 // step costs O(1) per frame once C and G are formed.
-func orthoCameras(rots [][3][3]float64, wc, S *mat.Dense) {
-	var WS mat.Dense
-	WS.Mul(wc, S.T())
-	var Gd mat.Dense
-	Gd.Mul(S, S.T())
-	var G [3][3]float64
-	for a := 0; a < 3; a++ {
-		for b := 0; b < 3; b++ {
-			G[a][b] = Gd.At(a, b)
-		}
-	}
-	for i := range rots {
-		C := [2][3]float64{
-			{WS.At(2*i, 0), WS.At(2*i, 1), WS.At(2*i, 2)},
-			{WS.At(2*i+1, 0), WS.At(2*i+1, 1), WS.At(2*i+1, 2)},
-		}
-		for step := 0; step < 3; step++ {
-			if !rotationGNStep(&rots[i], C, G) {
-				break
-			}
-		}
-	}
-}
-
-// rotationGNStep takes one Gauss–Newton step (see orthoCameras) and
-// reports whether the step was large enough to be worth another.
+//
+// It reports whether the step was large enough to be worth another. It is
+// rotationStepB for B = [I 0], with the sums in closed form.
 func rotationGNStep(R *[3][3]float64, C [2][3]float64, G [3][3]float64) bool {
 	A := [2][3]float64{R[0], R[1]}
 	k := R[2]
@@ -435,22 +393,6 @@ func expSO3(w [3]float64) [3][3]float64 {
 		R[i][i]++
 	}
 	return R
-}
-
-// orthoCost is ‖W̃ − A S‖²_F.
-func orthoCost(rots [][3][3]float64, wc, S *mat.Dense) float64 {
-	r, c := wc.Dims()
-	cost := 0.0
-	for i := 0; i < r; i++ {
-		R := rots[i/2][i%2]
-		row := wc.RawRowView(i)
-		s0, s1, s2 := S.RawRowView(0), S.RawRowView(1), S.RawRowView(2)
-		for j := 0; j < c; j++ {
-			d := row[j] - (R[0]*s0[j] + R[1]*s1[j] + R[2]*s2[j])
-			cost += d * d
-		}
-	}
-	return cost
 }
 
 // factorOrthographic is the orthographic Tomasi–Kanade factorization.
