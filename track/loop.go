@@ -14,7 +14,6 @@ import (
 	"sync/atomic"
 
 	"gocv.io/x/gocv"
-	"gonum.org/v1/gonum/mat"
 )
 
 // LoopOptions configures CloseLoops. The zero value of every field means
@@ -1204,40 +1203,10 @@ func fitViewBasis(set *Set, f, t int, threshold float64, minTracks int) *viewBas
 	}
 	var vb *viewBasis
 	for pass := 0; pass < 2; pass++ {
-		var c [4]float64
-		n := 0
-		for k, p := range ps {
-			if use[k] {
-				for a := range c {
-					c[a] += p[a]
-				}
-				n++
-			}
-		}
-		if n < minTracks {
+		c, n, v, vals, ok := centredScatterEigen(ps, use, minTracks)
+		if !ok {
 			return nil
 		}
-		for a := range c {
-			c[a] /= float64(n)
-		}
-		s := mat.NewSymDense(4, nil)
-		for k, p := range ps {
-			if !use[k] {
-				continue
-			}
-			for a := 0; a < 4; a++ {
-				for b := a; b < 4; b++ {
-					s.SetSym(a, b, s.At(a, b)+(p[a]-c[a])*(p[b]-c[b]))
-				}
-			}
-		}
-		var eig mat.EigenSym
-		if !eig.Factorize(s, true) {
-			return nil
-		}
-		var v mat.Dense
-		eig.VectorsTo(&v)
-		vals := eig.Values(nil) // ascending
 		vb = &viewBasis{mean: c, n: n, depth: math.Sqrt(math.Max(0, vals[1]) / float64(n))}
 		for a := 0; a < 3; a++ {
 			for b := 0; b < 4; b++ {

@@ -441,8 +441,24 @@ func hyperplane4(p0, p1, p2, p3 [4]float64) ([5]float64, bool) {
 // (x', y', x, y); the normal (a, b, c, d) is the eigenvector of the
 // smallest eigenvalue of the 4×4 scatter matrix; e = −N·centroid.
 func goldStandardAffineF(pts [][4]float64, use []bool) ([5]float64, bool) {
-	var c [4]float64
-	n := 0
+	c, _, v, _, ok := centredScatterEigen(pts, use, 4)
+	if !ok {
+		return [5]float64{}, false
+	}
+	var m [5]float64
+	for j := 0; j < 4; j++ {
+		m[j] = v.At(j, 0) // ascending eigenvalues: column 0 is the smallest
+	}
+	m[4] = -(m[0]*c[0] + m[1]*c[1] + m[2]*c[2] + m[3]*c[3])
+	return m, true
+}
+
+// centredScatterEigen is the eigen-decomposition of the 4×4 scatter matrix
+// Σ (p − c)(p − c)ᵀ of the used correspondences about their centroid c:
+// the eigenvectors as the columns of v, eigenvalues vals ascending, n the
+// number used. ok is false with fewer than minN correspondences or when
+// the decomposition fails.
+func centredScatterEigen(pts [][4]float64, use []bool, minN int) (c [4]float64, n int, v *mat.Dense, vals []float64, ok bool) {
 	for i, p := range pts {
 		if use[i] {
 			for j := range c {
@@ -451,8 +467,8 @@ func goldStandardAffineF(pts [][4]float64, use []bool) ([5]float64, bool) {
 			n++
 		}
 	}
-	if n < 4 {
-		return [5]float64{}, false
+	if n < minN {
+		return c, n, nil, nil, false
 	}
 	for j := range c {
 		c[j] /= float64(n)
@@ -470,14 +486,9 @@ func goldStandardAffineF(pts [][4]float64, use []bool) ([5]float64, bool) {
 	}
 	var eig mat.EigenSym
 	if !eig.Factorize(s, true) {
-		return [5]float64{}, false
+		return c, n, nil, nil, false
 	}
-	var v mat.Dense
-	eig.VectorsTo(&v) // ascending eigenvalues: column 0 is the smallest
-	var m [5]float64
-	for j := 0; j < 4; j++ {
-		m[j] = v.At(j, 0)
-	}
-	m[4] = -(m[0]*c[0] + m[1]*c[1] + m[2]*c[2] + m[3]*c[3])
-	return m, true
+	v = new(mat.Dense)
+	eig.VectorsTo(v)
+	return c, n, v, eig.Values(nil), true
 }
