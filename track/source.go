@@ -596,24 +596,10 @@ func imageToBGR(im image.Image, dst *gocv.Mat) {
 	}
 	switch m := im.(type) {
 	case *image.RGBA:
-		for y := 0; y < h; y++ {
-			o0 := m.PixOffset(b.Min.X, b.Min.Y+y)
-			row := m.Pix[o0 : o0+4*w]
-			o := px[y*3*w : (y+1)*3*w]
-			for x := 0; x < w; x++ {
-				// RGBA is alpha-premultiplied; frames are taken as opaque.
-				o[3*x], o[3*x+1], o[3*x+2] = row[4*x+2], row[4*x+1], row[4*x]
-			}
-		}
+		// RGBA is alpha-premultiplied; frames are taken as opaque.
+		rgbaRowsToBGR(px, m.Pix, m.Stride, m.PixOffset(b.Min.X, b.Min.Y), w, h)
 	case *image.NRGBA:
-		for y := 0; y < h; y++ {
-			o0 := m.PixOffset(b.Min.X, b.Min.Y+y)
-			row := m.Pix[o0 : o0+4*w]
-			o := px[y*3*w : (y+1)*3*w]
-			for x := 0; x < w; x++ {
-				o[3*x], o[3*x+1], o[3*x+2] = row[4*x+2], row[4*x+1], row[4*x]
-			}
-		}
+		rgbaRowsToBGR(px, m.Pix, m.Stride, m.PixOffset(b.Min.X, b.Min.Y), w, h)
 	case *image.Gray:
 		for y := 0; y < h; y++ {
 			o0 := m.PixOffset(b.Min.X, b.Min.Y+y)
@@ -631,6 +617,19 @@ func imageToBGR(im image.Image, dst *gocv.Mat) {
 				c := color.RGBAModel.Convert(im.At(b.Min.X+x, b.Min.Y+y)).(color.RGBA)
 				o[3*x], o[3*x+1], o[3*x+2] = c.B, c.G, c.R
 			}
+		}
+	}
+}
+
+// rgbaRowsToBGR copies h rows of w 4-byte RGBA pixels (row stride stride,
+// first pixel at off) into the packed 3-byte BGR buffer px, dropping alpha.
+func rgbaRowsToBGR(px, pix []uint8, stride, off, w, h int) {
+	for y := 0; y < h; y++ {
+		o0 := off + y*stride
+		row := pix[o0 : o0+4*w]
+		o := px[y*3*w : (y+1)*3*w]
+		for x := 0; x < w; x++ {
+			o[3*x], o[3*x+1], o[3*x+2] = row[4*x+2], row[4*x+1], row[4*x]
 		}
 	}
 }
