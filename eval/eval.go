@@ -10,37 +10,19 @@ import (
 	"sort"
 
 	"gonum.org/v1/gonum/mat"
+
+	"trackfactor/factor/rotation"
 )
 
 // RotationAngleDeg is the angle of the rotation A·Bᵀ, degrees: the
 // geodesic distance between rotations A and B, θ = acos((tr(ABᵀ) − 1)/2)
 // (Rodrigues; Hartley, Trumpf, Dai and Li, "Rotation averaging", IJCV 2013,
-// §2). The argument is clamped to [−1, 1] against rounding.
+// §2), computed by rotation.Angle, accurate near 0 and π.
 func RotationAngleDeg(a, b [3][3]float64) float64 {
-	tr := 0.0
-	for i := 0; i < 3; i++ {
-		for k := 0; k < 3; k++ {
-			tr += a[i][k] * b[i][k]
-		}
-	}
-	c := math.Max(-1, math.Min(1, (tr-1)/2))
-	// acos loses precision near 1; use atan2 of the skew part for small angles.
-	m := mulABt(a, b)
-	s := 0.5 * math.Sqrt(sq(m[2][1]-m[1][2])+sq(m[0][2]-m[2][0])+sq(m[1][0]-m[0][1]))
-	return math.Atan2(s, c) * 180 / math.Pi
+	return rotation.Angle(a, b) * 180 / math.Pi
 }
 
 func sq(x float64) float64 { return x * x }
-
-func mulABt(a, b [3][3]float64) [3][3]float64 {
-	var c [3][3]float64
-	for i := 0; i < 3; i++ {
-		for j := 0; j < 3; j++ {
-			c[i][j] = a[i][0]*b[j][0] + a[i][1]*b[j][1] + a[i][2]*b[j][2]
-		}
-	}
-	return c
-}
 
 // mirror returns D·R·D with D = diag(1, 1, −1): the camera of the mirrored
 // (depth-reversed) solution of an affine reconstruction.
@@ -75,8 +57,8 @@ func CompareRotations(est, truth [][3][3]float64, allowMirror bool) (RotationErr
 		sum := 0.0
 		for i := range e {
 			for j := i + 1; j < len(e); j++ {
-				re := mulABt(e[j], e[i])
-				rt := mulABt(truth[j], truth[i])
+				re := rotation.MulT(e[j], e[i])
+				rt := rotation.MulT(truth[j], truth[i])
 				a := RotationAngleDeg(re, rt)
 				errs = append(errs, a)
 				sum += a
