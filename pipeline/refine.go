@@ -62,29 +62,6 @@ type Refinement struct {
 // chosen by convention (camera above the turntable), not by the data.
 const WarnDepthConvention = "depth-order-by-convention"
 
-// mirrorDepth returns the mirror image of an affine reconstruction in the
-// depth direction of camera 0: with D = diag(1, 1, −1), R' = D·R·D and
-// X' = D·X project exactly as R and X do (the first two rows of D·R·D·D·X
-// are those of R·X), so the fit is unchanged.
-func mirrorDepth(rec *factor.Reconstruction) *factor.Reconstruction {
-	out := *rec
-	out.Cameras = append([]factor.Camera(nil), rec.Cameras...)
-	out.Points = append([]factor.Point(nil), rec.Points...)
-	d := [3]float64{1, 1, -1}
-	for i := range out.Cameras {
-		R := &out.Cameras[i].R
-		for a := 0; a < 3; a++ {
-			for b := 0; b < 3; b++ {
-				R[a][b] *= d[a] * d[b]
-			}
-		}
-	}
-	for i := range out.Points {
-		out.Points[i].X[2] = -out.Points[i].X[2]
-	}
-	return &out
-}
-
 // usedMeasurements rebuilds the measurement matrix of the tracks the
 // reconstruction used, over all frames of the set, with a mask when any
 // entry is missing.
@@ -174,7 +151,7 @@ func refine(ctx context.Context, res *Result, cfg Config) error {
 		// Affine models cannot tell the depth order; of the two, report
 		// the one in which the camera looks down on the turntable, the
 		// usual set-up, and say so.
-		mirrored := mirrorDepth(res.Rec)
+		mirrored := bundle.Mirrored(res.Rec)
 		fitOpts.Uncertainty = out.Uncertainty
 		if fit, err := turntable.FitReconstruction(mirrored, fitOpts); err == nil {
 			res.Rec, out.Turntable = mirrored, fit
