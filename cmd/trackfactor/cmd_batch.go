@@ -77,11 +77,7 @@ func batchCommand() *cli.Command {
 		&cli.StringFlag{Name: "shard", Category: "batch", Usage: "run only share K of N (K/N, 1 ≤ K ≤ N): the captures whose index in name order, from 0, is K-1 modulo N", Destination: &o.shard},
 		&cli.BoolFlag{Name: "merge", Category: "batch", Usage: "join the shard summaries in the folders given as arguments into summary.csv, summary.json and index.html (in -o, or in the one folder given)", Destination: &o.merge},
 	}
-	flags = append(flags, o.common.flags()...)
-	flags = append(flags, o.trackF.flags()...)
-	flags = append(flags, o.factorF.flags()...)
-	flags = append(flags, o.refineF.flags()...)
-	flags = append(flags, o.out.flags()...)
+	flags = append(flags, o.runOptions.flags()...)
 	return &cli.Command{
 		Name:      "batch",
 		Usage:     "reconstruct every capture (sub-folder or video) of a folder, resumably, in parallel or in shards",

@@ -33,11 +33,7 @@ func demoCommand() *cli.Command {
 		&cli.Int64Flag{Name: "seed", Usage: "texture and noise seed", Value: 1, Destination: &o.seed},
 		&cli.BoolFlag{Name: "backdrop", Usage: "render a static textured backdrop behind the part", Destination: &o.backdrop},
 	}
-	flags = append(flags, o.common.flags()...)
-	flags = append(flags, o.trackF.flags()...)
-	flags = append(flags, o.factorF.flags()...)
-	flags = append(flags, o.refineF.flags()...)
-	flags = append(flags, o.out.flags()...)
+	flags = append(flags, o.runOptions.flags()...)
 	return &cli.Command{
 		Name:  "demo",
 		Usage: "render the built-in turntable scene, reconstruct it and score the result against its ground truth",

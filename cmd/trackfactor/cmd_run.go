@@ -24,10 +24,7 @@ type runOptions struct {
 
 func runCommand() *cli.Command {
 	o := &runOptions{}
-	flags := append(o.common.flags(), o.trackF.flags()...)
-	flags = append(flags, o.factorF.flags()...)
-	flags = append(flags, o.refineF.flags()...)
-	flags = append(flags, o.out.flags()...)
+	flags := o.flags()
 	return &cli.Command{
 		Name:      "run",
 		Usage:     "track, reconstruct and write results for one capture",
@@ -58,6 +55,16 @@ func runCommand() *cli.Command {
 			return nil
 		},
 	}
+}
+
+// flags are every flag group of a reconstruction run, shared by run, demo
+// and batch so the three accept the same settings.
+func (o *runOptions) flags() []cli.Flag {
+	var flags []cli.Flag
+	for _, g := range [][]cli.Flag{o.common.flags(), o.trackF.flags(), o.factorF.flags(), o.refineF.flags(), o.out.flags()} {
+		flags = append(flags, g...)
+	}
+	return flags
 }
 
 func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, error) {
