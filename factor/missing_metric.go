@@ -47,12 +47,7 @@ func incMetricScaled(M *mat.Dense) (*mat.SymDense, float64, error) {
 		return nil, 0, fmt.Errorf("factor: %w: the scaled-orthographic upgrade needs 3 frames", ErrMetricUpgrade)
 	}
 	G := mat.NewDense(2*f, 6, nil)
-	g := func(a, b []float64) [6]float64 {
-		return [6]float64{
-			a[0] * b[0], a[0]*b[1] + a[1]*b[0], a[0]*b[2] + a[2]*b[0],
-			a[1] * b[1], a[1]*b[2] + a[2]*b[1], a[2] * b[2],
-		}
-	}
+	g := symQuad // rows of the metric constraints
 	for i := 0; i < f; i++ {
 		a, b := M.RawRowView(2*i), M.RawRowView(2*i+1)
 		aa, bb, ab := g(a, a), g(b, b), g(a, b)

@@ -179,6 +179,16 @@ func factorRankK(wc *mat.Dense, k int, truncated bool) (rank3, error) {
 	return rank3{M: M, S: S, Values: vals, Resid2: res}, nil
 }
 
+// symQuad returns the coefficients of aᵀ L b in the six entries
+// (L11, L12, L13, L22, L23, L33) of a symmetric 3×3 L — the row of a
+// metric constraint (Tomasi–Kanade 1992, eq. 16).
+func symQuad(a, b []float64) [6]float64 {
+	return [6]float64{
+		a[0] * b[0], a[0]*b[1] + a[1]*b[0], a[0]*b[2] + a[2]*b[0],
+		a[1] * b[1], a[1]*b[2] + a[2]*b[1], a[2] * b[2],
+	}
+}
+
 // metricL solves the linear least-squares system for the six entries of the
 // symmetric L = QQᵀ from î_fᵀLî_f = 1, ĵ_fᵀLĵ_f = 1, î_fᵀLĵ_f = 0
 // (Tomasi–Kanade 1992, eq. 16). It returns L and the condition number of the
@@ -188,12 +198,7 @@ func metricL(M *mat.Dense) (*mat.SymDense, float64, error) {
 	f := r / 2
 	G := mat.NewDense(3*f, 6, nil)
 	c := mat.NewVecDense(3*f, nil)
-	g := func(a, b []float64) [6]float64 {
-		return [6]float64{
-			a[0] * b[0], a[0]*b[1] + a[1]*b[0], a[0]*b[2] + a[2]*b[0],
-			a[1] * b[1], a[1]*b[2] + a[2]*b[1], a[2] * b[2],
-		}
-	}
+	g := symQuad // rows of the metric constraints
 	for i := 0; i < f; i++ {
 		a := M.RawRowView(2 * i)
 		b := M.RawRowView(2*i + 1)

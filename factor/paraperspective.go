@@ -80,12 +80,7 @@ func resolveIntrinsics(m *Measurements, opts Options) (in Intrinsics, defaulted 
 func upgradeScaled(Mh *mat.Dense, para *paraFrame, d *Diagnostics) ([]affineCam, error) {
 	r, _ := Mh.Dims()
 	nf := r / 2
-	g := func(a, b []float64) [6]float64 {
-		return [6]float64{
-			a[0] * b[0], a[0]*b[1] + a[1]*b[0], a[0]*b[2] + a[2]*b[0],
-			a[1] * b[1], a[1]*b[2] + a[2]*b[1], a[2] * b[2],
-		}
-	}
+	g := symQuad // rows of the metric constraints
 	// Normalised rows of M̂ and the positions.
 	rows := make([][2][3]float64, nf)
 	pos := make([][2]float64, nf)
