@@ -24,9 +24,15 @@ type PLYOptions struct {
 	// Uncertainty, when not nil, adds "property float sigma" with one
 	// value per point, in the order of the document's points and in Units.
 	// Its length must equal the number of points; values must be finite
-	// and not negative. Default nil: no sigma property.
+	// and not negative, or SigmaUnknown for a point without one. Default
+	// nil: no sigma property.
 	Uncertainty []float64
 }
+
+// SigmaUnknown is the PLY sigma of a point whose uncertainty was not
+// determined (PLY has no missing value; a negative deviation cannot be
+// mistaken for a real one).
+const SigmaUnknown = -1
 
 // CamerasPLYOptions control WriteCamerasPLY.
 type CamerasPLYOptions struct {
@@ -80,8 +86,8 @@ func WritePointsPLY(w io.Writer, doc *Document, opts PLYOptions) error {
 		verts[i] = plyVertex{xyz: xyz, rgb: p.RGB}
 		if opts.Uncertainty != nil {
 			s := opts.Uncertainty[i]
-			if !(s >= 0) || s > math.MaxFloat32 {
-				return fmt.Errorf("export: uncertainty of point %d (track %d) is %v; it must be finite and not negative", i, p.Track, s)
+			if !(s >= 0 || s == SigmaUnknown) || s > math.MaxFloat32 {
+				return fmt.Errorf("export: uncertainty of point %d (track %d) is %v; it must be finite and not negative (or SigmaUnknown)", i, p.Track, s)
 			}
 			verts[i].sigma = float32(s)
 		}
@@ -96,7 +102,7 @@ func WritePointsPLY(w io.Writer, doc *Document, opts PLYOptions) error {
 	props := []string{"float x", "float y", "float z", "uchar red", "uchar green", "uchar blue"}
 	if opts.Uncertainty != nil {
 		props = append(props, "float sigma")
-		comments = append(comments, "sigma is the position uncertainty in "+units)
+		comments = append(comments, "sigma is the position standard deviation in "+units+", -1 where not determined")
 	}
 	pw := newPLYWriter(w, opts.ASCII)
 	pw.header(comments, []plyElementDecl{{"vertex", n, props}})

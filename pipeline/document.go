@@ -57,10 +57,15 @@ func addStageReports(doc *export.Document, res *Result, timing bool) {
 		})
 	}
 	if r.Scale != nil {
-		d.Scale = rawJSON(map[string]any{
+		sc := map[string]any{
 			"unit": r.Scale.Unit, "factor": r.Scale.Factor,
 			"relative_sigma": r.Scale.RelativeSigma, "camera_scale_spread": r.Scale.ScaleSpread,
-		})
+		}
+		if u := r.Reference; u != nil {
+			sc["reference"] = map[string]any{"frame": u.Frame, "track_a": u.TrackA, "track_b": u.TrackB,
+				"snap_a_px": u.SnapA, "snap_b_px": u.SnapB}
+		}
+		d.Scale = rawJSON(sc)
 	}
 	if sig := pointSigmas(res); sig != nil {
 		for i := range doc.Points {

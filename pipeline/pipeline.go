@@ -64,6 +64,10 @@ type Config struct {
 	Out      string // output folder
 	Force    bool   // replace earlier results in Out
 	PLYASCII bool   // write PLY as ASCII instead of binary little-endian
+	// PLYSigma adds a per-vertex "sigma" property to points.ply: each
+	// point's position standard deviation from the refinement (in the
+	// result's units), −1 where none was determined.
+	PLYSigma bool
 
 	Producer export.Producer
 	// Settings are extra entries for the "settings" object of the JSON
@@ -400,6 +404,7 @@ func Settings(cfg Config) map[string]any {
 		"refine":    refineSettings(fixThreads(cfg).Refine),
 		"range":     toMap(cfg.Range),
 		"ply_ascii": cfg.PLYASCII,
+		"ply_sigma": cfg.PLYSigma,
 	}
 	for k, v := range cfg.Settings {
 		s[k] = v
@@ -524,7 +529,11 @@ func Write(res *Result, cfg Config) (err error) {
 	}{
 		{"reconstruction.json", func(w io.Writer) error { return export.WriteJSON(w, res.Doc) }},
 		{"points.ply", func(w io.Writer) error {
-			return export.WritePointsPLY(w, res.Doc, export.PLYOptions{ASCII: cfg.PLYASCII})
+			o := export.PLYOptions{ASCII: cfg.PLYASCII}
+			if cfg.PLYSigma {
+				o.Uncertainty = plySigmas(res.Doc)
+			}
+			return export.WritePointsPLY(w, res.Doc, o)
 		}},
 		{"cameras.ply", func(w io.Writer) error {
 			return export.WriteCamerasPLY(w, res.Doc, export.CamerasPLYOptions{ASCII: cfg.PLYASCII})

@@ -4,8 +4,11 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"path/filepath"
+	"strconv"
 	"time"
 
+	"trackfactor/export"
 	"trackfactor/factor"
 	"trackfactor/factor/bundle"
 	"trackfactor/factor/turntable"
@@ -37,10 +40,91 @@ type RefineConfig struct {
 	Bundle bundle.Options
 }
 
-// Reference is a known distance between the points of two tracks.
+// Reference is a known distance between two points of the part, given
+// either as two track ids or as two image points in one frame.
 type Reference struct {
 	TrackA, TrackB int
 	Length         float64
+	// Frame, when not "", gives the reference as image points A and B
+	// (pixels, x right, y down) in that frame, named by its file name
+	// (as listed in the JSON's input.frames) or its index from 0. Each
+	// point stands for the used track observed closest to it in that
+	// frame, within SnapPx; TrackA and TrackB are then ignored.
+	Frame string
+	A, B  [2]float64
+	// SnapPx is how far from a point its track may be, px; 0 means
+	// DefaultSnapPx.
+	SnapPx float64
+}
+
+// DefaultSnapPx is the default Reference.SnapPx: a few pixels, about the
+// spacing error of a click on a corner that the tracker also found.
+const DefaultSnapPx = 4.0
+
+// ReferenceUsed records which tracks an image-point reference stood for.
+type ReferenceUsed struct {
+	Frame          int
+	TrackA, TrackB int
+	// SnapA and SnapB are the distances, px, from the given points to the
+	// tracks' observations in that frame.
+	SnapA, SnapB float64
+}
+
+// resolveReference maps an image-point reference to the two used tracks
+// observed nearest to its points in its frame.
+func resolveReference(ref *Reference, set *track.Set, used []track.Track) (*ReferenceUsed, error) {
+	f := -1
+	for i, n := range set.Frames {
+		if n == ref.Frame || filepath.Base(n) == ref.Frame {
+			f = i
+			break
+		}
+	}
+	if f < 0 {
+		if i, err := strconv.Atoi(ref.Frame); err == nil && i >= 0 && i < len(set.Frames) {
+			f = i
+		}
+	}
+	if f < 0 {
+		return nil, fmt.Errorf("reference frame %q is not one of the %d frames of the input; name a frame by its file name or its index (0–%d)", ref.Frame, len(set.Frames), len(set.Frames)-1)
+	}
+	snap := ref.SnapPx
+	if snap <= 0 {
+		snap = DefaultSnapPx
+	}
+	nearest := func(p [2]float64) (int, float64) {
+		best, bd := -1, math.Inf(1)
+		for _, t := range used {
+			for _, o := range t.Obs {
+				if o.Frame != f {
+					continue
+				}
+				if d := math.Hypot(o.X-p[0], o.Y-p[1]); d < bd {
+					best, bd = t.ID, d
+				}
+			}
+		}
+		return best, bd
+	}
+	u := &ReferenceUsed{Frame: f}
+	for k, p := range [][2]float64{ref.A, ref.B} {
+		id, d := nearest(p)
+		if id < 0 {
+			return nil, fmt.Errorf("reference frame %q (%d): no reconstructed track is seen in it; name another frame", ref.Frame, f)
+		}
+		if d > snap {
+			return nil, fmt.Errorf("reference point (%.1f, %.1f) in frame %q: the nearest reconstructed track (%d) is %.1f px away, more than %.1f px; pick a point on a corner the tracker followed (tracks.csv lists them by frame)", p[0], p[1], ref.Frame, id, d, snap)
+		}
+		if k == 0 {
+			u.TrackA, u.SnapA = id, d
+		} else {
+			u.TrackB, u.SnapB = id, d
+		}
+	}
+	if u.TrackA == u.TrackB {
+		return nil, fmt.Errorf("both reference points in frame %q are nearest to track %d; give two points farther apart", ref.Frame, u.TrackA)
+	}
+	return u, nil
 }
 
 // Refinement is what the refinement stage did, for the outputs.
@@ -50,7 +134,10 @@ type Refinement struct {
 	Uncertainty *bundle.Uncertainty
 	Turntable   *turntable.Fit
 	Scale       *bundle.Scaled
-	Units       string
+	// Reference is which tracks an image-point reference stood for; nil
+	// when none was given that way.
+	Reference *ReferenceUsed
+	Units     string
 	// Skipped says why bundle adjustment did not run ("" when it ran).
 	Skipped string
 	// DepthConvention is true when the depth order of an affine result
@@ -180,7 +267,15 @@ func applyScale(res *Result, rc RefineConfig, out *Refinement) error {
 	case rc.PixelSize > 0:
 		sc, err = bundle.ScaleByPixelSize(res.Rec, rc.PixelSize, unit)
 	case rc.Reference != nil:
-		sc, err = bundle.ScaleByReference(res.Rec, out.Uncertainty, rc.Reference.TrackA, rc.Reference.TrackB, rc.Reference.Length, unit)
+		a, b := rc.Reference.TrackA, rc.Reference.TrackB
+		if rc.Reference.Frame != "" {
+			u, err := resolveReference(rc.Reference, res.Set, res.Window.Tracks)
+			if err != nil {
+				return &InputError{fmt.Errorf("scale: %w", err)}
+			}
+			out.Reference, a, b = u, u.TrackA, u.TrackB
+		}
+		sc, err = bundle.ScaleByReference(res.Rec, out.Uncertainty, a, b, rc.Reference.Length, unit)
 	default:
 		return nil
 	}
@@ -212,6 +307,20 @@ func pointSigmas(res *Result) []float64 {
 	out := make([]float64, len(res.Rec.Points))
 	for i, p := range res.Rec.Points {
 		out[i] = byTrack[p.Track]
+	}
+	return out
+}
+
+// plySigmas returns the points' standard deviations in document order for
+// the PLY sigma property, with export.SigmaUnknown for points the
+// refinement gave none (not refined, or refinement skipped).
+func plySigmas(doc *export.Document) []float64 {
+	out := make([]float64, len(doc.Points))
+	for i, p := range doc.Points {
+		out[i] = export.SigmaUnknown
+		if p.Sigma != nil {
+			out[i] = *p.Sigma
+		}
 	}
 	return out
 }

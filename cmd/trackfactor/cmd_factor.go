@@ -37,7 +37,7 @@ func factorCommand() *cli.Command {
 				return err
 			}
 			cfg := pipeline.Config{
-				Input: c.Args().First(), Factor: fo, Out: of.dir, Force: of.force, PLYASCII: of.plyASCII, MaxMemory: of.maxBytes,
+				Input: c.Args().First(), Factor: fo, Out: of.dir, Force: of.force, PLYASCII: of.plyASCII, PLYSigma: of.plySigma, MaxMemory: of.maxBytes,
 				Producer: producer(c), Progress: common.progress(c.App.ErrWriter),
 			}
 			res, err := pipeline.FromTrackFile(c.Context, cfg, width, height)

@@ -40,7 +40,7 @@ func refineCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			cfg := pipeline.Config{Factor: fo, Refine: rc, Out: of.dir, Force: of.force, PLYASCII: of.plyASCII,
+			cfg := pipeline.Config{Factor: fo, Refine: rc, Out: of.dir, Force: of.force, PLYASCII: of.plyASCII, PLYSigma: of.plySigma,
 				Timing: of.timing, Producer: producer(c), Progress: common.progress(c.App.ErrWriter),
 				Settings: map[string]any{"config": configOf(c).asSettings(), "refined_from": c.Args().First()}}
 			res, err := pipeline.RefineExisting(c.Context, c.Args().First(), cfg)

@@ -73,6 +73,7 @@ func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, erro
 		Out:       o.out.dir,
 		Force:     o.out.force,
 		PLYASCII:  o.out.plyASCII,
+		PLYSigma:  o.out.plySigma,
 		Timing:    o.out.timing,
 		MaxMemory: o.out.maxBytes,
 		Producer:  producer(c),
@@ -92,6 +93,9 @@ func (o *runOptions) config(c *cli.Context, input string) (pipeline.Config, erro
 	}
 	if cfg.Refine, err = o.refineF.config(); err != nil {
 		return cfg, err
+	}
+	if cfg.PLYSigma && cfg.Refine.Off {
+		return cfg, usagef("--ply-sigma writes the refinement's point uncertainties, but --refine=false skips the refinement; drop one of the two")
 	}
 	if cfg.MaskFile, cfg.ROI, err = o.trackF.maskSpec(); err != nil {
 		return cfg, err

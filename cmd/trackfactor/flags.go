@@ -176,6 +176,7 @@ type outFlags struct {
 	dir       string
 	force     bool
 	plyASCII  bool
+	plySigma  bool
 	timing    bool
 	maxMemory string
 	maxBytes  int64 // maxMemory parsed by validate
@@ -187,6 +188,7 @@ func (f *outFlags) flags() []cli.Flag {
 		&cli.BoolFlag{Name: "force", Category: "output", Usage: "replace results already in the output folder (other files there are left alone)", Destination: &f.force},
 		&cli.BoolFlag{Name: "timing", Category: "output", Usage: "record each stage's wall-clock time in the JSON and the report (outputs then differ from run to run)", Destination: &f.timing},
 		&cli.BoolFlag{Name: "ply-ascii", Category: "output", Usage: "write PLY files as ASCII instead of binary little-endian", Destination: &f.plyASCII},
+		&cli.BoolFlag{Name: "ply-sigma", Category: "output", Usage: "add each point's position standard deviation (from the refinement) to points.ply as a vertex property \"sigma\"; -1 where none was determined", Destination: &f.plySigma},
 		&cli.StringFlag{Name: "max-memory", Category: "limits", Usage: fmt.Sprintf("refuse a reconstruction estimated to need more memory than this, e.g. 16G or 800M (0 = %.0f %% of the memory available when the run starts)", 100*pipeline.DefaultMemoryFraction), Value: "0", Destination: &f.maxMemory},
 	}
 }
