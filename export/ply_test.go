@@ -172,7 +172,7 @@ func TestWritePointsPLYErrors(t *testing.T) {
 		want   string
 	}{
 		{"sigma length", func(d *Document, o *PLYOptions) { o.Uncertainty = []float64{1} }, "1 values for 3 points"},
-		{"negative sigma", func(d *Document, o *PLYOptions) { o.Uncertainty = []float64{1, -1, 1} }, "uncertainty of point 1"},
+		{"negative sigma", func(d *Document, o *PLYOptions) { o.Uncertainty = []float64{1, -0.5, 1} }, "uncertainty of point 1"},
 		{"NaN point", func(d *Document, o *PLYOptions) { d.Points[1].XYZ[2] = math.NaN() }, "point 1 (track 3)"},
 		{"beyond float32", func(d *Document, o *PLYOptions) { d.Points[0].XYZ[0] = 1e39 }, "point 0 (track 17)"},
 	}
