@@ -197,6 +197,10 @@ func trackOpen(ctx context.Context, cfg Config) (*track.Set, track.Source, error
 	})
 	if err != nil {
 		src.Close()
+		var se *track.SourceEndedError
+		if errors.As(err, &se) && ctx.Err() == nil {
+			return nil, nil, &InputError{fmt.Errorf("%w; fewer than %d frames decode before it (pick frames that do with --start and --end)", err, track.MinFrames)}
+		}
 		return nil, nil, classify(err)
 	}
 	return set, src, nil
@@ -367,7 +371,25 @@ func Reconstruct(ctx context.Context, set *track.Set, cfg Config) (*Result, erro
 	return res, nil
 }
 
+// Warning codes of the tracking stage.
+const (
+	WarnInputStopped  = "input-stopped"
+	WarnOptionChanged = "tracking-option-changed"
+)
+
+// warnTracking turns what the tracker had to change or cut into warnings.
+func warnTracking(res *Result) {
+	st := res.Set.Stats
+	if s := st.Stopped; s != nil {
+		res.Rec.Diagnostics.Warn(WarnInputStopped, fmt.Sprintf("the video stopped decoding at %s (damaged or cut short): %d of the %d frames asked for were used; pass --end %d to choose that range explicitly", s.Frame, len(res.Set.Frames), s.Announced, s.Index))
+	}
+	for _, c := range st.Clamped {
+		res.Rec.Diagnostics.Warn(WarnOptionChanged, c)
+	}
+}
+
 func buildDocument(res *Result, cfg Config) *export.Document {
+	warnTracking(res)
 	colours := make(map[int][3]uint8, len(res.Window.Tracks))
 	for _, t := range res.Window.Tracks {
 		colours[t.ID] = t.RGB

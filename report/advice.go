@@ -24,6 +24,16 @@ func adviceTable() map[string]Advice {
 			"The affine model cannot tell which way depth runs; the result shown assumes the camera looks down on the turntable, the usual set-up.",
 			"Nothing if the camera looks down on the part; if it looks up, depth is reversed. Give --intrinsics so a perspective refinement decides from the data.",
 		},
+		"input-stopped": {
+			"The video stopped early",
+			"Frames stopped decoding part way through the video (a damaged or cut file); the result uses only the frames before that point.",
+			"If the missing frames matter, copy or export the video again and rerun; otherwise pass --end before the damaged frame to make the choice explicit.",
+		},
+		"tracking-option-changed": {
+			"A tracking option was adjusted",
+			"An option could not be used as given on these frames (for example more pyramid levels than a small image has) and was reduced; the result is otherwise normal.",
+			"Set the option to the value named in the warning to silence it, or use larger frames.",
+		},
 		"not-single-axis": {
 			"The motion is not a single-axis turn",
 			"The camera rotations stray from one common axis, so the turntable angles are only approximate.",

@@ -22,6 +22,7 @@ minimize=${TF_FUZZ_MINIMIZE_TIME:-5s}
 # package target — what each reads
 targets=(
 	"./track FuzzReadCSV"                 # track CSV (ours or another tracker's)
+	"./track FuzzCheckComplete"           # PNG/JPEG completeness check run before every frame is decoded
 	"./export FuzzReadPLY"                # PLY point clouds
 	"./export FuzzValidate"               # reconstruction.json against the schema
 	"./export FuzzReadJSON"               # reconstruction.json into a document

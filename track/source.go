@@ -14,6 +14,7 @@ import (
 	"path/filepath"
 	"sort"
 	"strings"
+	"sync"
 
 	"gocv.io/x/gocv"
 )
@@ -218,12 +219,16 @@ func (s *folderSource) Read(ctx context.Context, i int, dst *gocv.Mat) error {
 		return err
 	}
 	path := filepath.Join(s.dir, s.names[i])
-	m := gocv.IMRead(path, imreadColorAsStored)
-	if m.Empty() {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return fmt.Errorf("track: frame %s can no longer be read: %v", s.names[i], err)
+	}
+	if err := checkComplete(b); err != nil {
+		return fmt.Errorf("track: frame %s could not be decoded: %v; copy the frame again or leave it out (--start, --end, or move it away)", s.names[i], err)
+	}
+	m, err := gocv.IMDecode(b, imreadColorAsStored)
+	if err != nil || m.Empty() {
 		m.Close()
-		if _, err := os.Stat(path); err != nil {
-			return fmt.Errorf("track: frame %s can no longer be read: %v", s.names[i], err)
-		}
 		return fmt.Errorf("track: frame %s could not be decoded; the file is corrupt or in an unsupported variant", s.names[i])
 	}
 	if m.Cols() != s.w || m.Rows() != s.h {
@@ -244,6 +249,9 @@ func imageSize(path string) (w, h int, err error) {
 		return 0, 0, fmt.Errorf("track: cannot read image %s: %v", name, err)
 	}
 	defer f.Close()
+	if st, err := f.Stat(); err == nil && st.Size() == 0 {
+		return 0, 0, fmt.Errorf("track: image %s is empty (0 bytes), perhaps a copy that did not finish; copy it again or remove it", name)
+	}
 	switch strings.ToLower(filepath.Ext(path)) {
 	case ".bmp":
 		w, h, err = bmpSize(f)
@@ -395,6 +403,12 @@ type videoSource struct {
 	w, h int
 	cap  *gocv.VideoCapture
 	next int // index of the frame the capture reads next
+	// total is the frame count the container announced.
+	total int
+	// ahead holds frame aheadIdx, read after the frame before it to see
+	// whether that one was the last to decode (aheadIdx −1: none).
+	ahead    gocv.Mat
+	aheadIdx int
 }
 
 // OpenVideo opens a video file through OpenCV's VideoCapture (the codecs
@@ -448,13 +462,26 @@ func OpenVideo(path string, r Range) (Source, error) {
 		vc.Close()
 		return nil, fmt.Errorf("track: video %s gives %d frames (range %s of %d); at least %d are needed", path, len(idx), r, n, MinFrames)
 	}
-	return &videoSource{path: path, idx: idx, w: w, h: h, cap: vc}, nil
+	return &videoSource{path: path, idx: idx, w: w, h: h, cap: vc, total: n, ahead: gocv.NewMat(), aheadIdx: -1}, nil
 }
+
+// quietFFmpeg silences FFmpeg's log once per process (the setting is the
+// process's environment, so there is one).
+var quietFFmpeg sync.Once
 
 // openCapture opens a video with OpenCV's FFmpeg backend first (it reads
 // the common containers and says little on failure), then with any
 // backend the build has.
 func openCapture(path string) (*gocv.VideoCapture, error) {
+	quietFFmpeg.Do(func() {
+		// OpenCV's FFmpeg backend reads OPENCV_FFMPEG_LOGLEVEL once, when
+		// it first opens a file; without it FFmpeg prints its own error
+		// lines ("overread", "invalid data") on stderr beside ours. −8 is
+		// AV_LOG_QUIET. A value the user set is kept.
+		if _, set := os.LookupEnv("OPENCV_FFMPEG_LOGLEVEL"); !set {
+			os.Setenv("OPENCV_FFMPEG_LOGLEVEL", "-8")
+		}
+	})
 	for _, api := range []gocv.VideoCaptureAPI{gocv.VideoCaptureFFmpeg, gocv.VideoCaptureAny} {
 		vc, err := gocv.VideoCaptureFileWithAPI(path, api)
 		if err == nil && vc.IsOpened() {
@@ -477,6 +504,7 @@ func (s *videoSource) Close() error {
 	}
 	err := s.cap.Close()
 	s.cap = nil
+	s.ahead.Close()
 	return err
 }
 
@@ -491,6 +519,32 @@ func (s *videoSource) Read(ctx context.Context, i int, dst *gocv.Mat) error {
 		return err
 	}
 	want := s.idx[i]
+	if err := s.readAt(want, dst); err != nil {
+		return err
+	}
+	// A file cut short usually ends inside a frame, which the decoder
+	// still returns, partly grey or repeated: a frame counts as read only
+	// once the one after it decodes too (the last announced frame has
+	// none after it). The frame read ahead serves the next call.
+	if want+1 < s.total {
+		if !s.cap.Read(&s.ahead) || s.ahead.Empty() {
+			return &SourceEndedError{Frame: want, Path: s.path}
+		}
+		s.aheadIdx, s.next = want+1, want+2
+	}
+	return s.checkFrame(want, dst)
+}
+
+// readAt puts video frame want into dst: the frame read ahead, or read
+// from the capture (reopened to go back, grabbing to skip forward).
+func (s *videoSource) readAt(want int, dst *gocv.Mat) error {
+	if want == s.aheadIdx {
+		dst.Close()
+		*dst, s.ahead = s.ahead, gocv.NewMat()
+		s.aheadIdx = -1
+		return nil
+	}
+	s.aheadIdx = -1
 	if want < s.next {
 		s.cap.Close()
 		vc, err := openCapture(s.path)
@@ -505,9 +559,15 @@ func (s *videoSource) Read(ctx context.Context, i int, dst *gocv.Mat) error {
 		s.next = want
 	}
 	if !s.cap.Read(dst) || dst.Empty() {
-		return fmt.Errorf("track: video %s: frame %d could not be read (file truncated?); choose a Range that ends before frame %d", s.path, want, want)
+		return &SourceEndedError{Frame: want, Path: s.path}
 	}
 	s.next = want + 1
+	return nil
+}
+
+// checkFrame checks the size of a decoded video frame and brings it to
+// 8-bit BGR.
+func (s *videoSource) checkFrame(want int, dst *gocv.Mat) error {
 	if dst.Cols() != s.w || dst.Rows() != s.h {
 		return fmt.Errorf("track: video %s: frame %d is %dx%d but the video is %dx%d", s.path, want, dst.Cols(), dst.Rows(), s.w, s.h)
 	}
@@ -632,4 +692,17 @@ func rgbaRowsToBGR(px, pix []uint8, stride, off, w, h int) {
 			o[3*x], o[3*x+1], o[3*x+2] = row[4*x+2], row[4*x+1], row[4*x]
 		}
 	}
+}
+
+// SourceEndedError is returned by a video Source whose frame cannot be
+// read although the container announced it: the file is damaged or cut
+// short. Run keeps the frames read before it when there are at least
+// MinFrames of them (Stats.Stopped says so) and fails otherwise.
+type SourceEndedError struct {
+	Path  string
+	Frame int // index of the frame in the video
+}
+
+func (e *SourceEndedError) Error() string {
+	return fmt.Sprintf("track: video %s stopped decoding at frame %d (the file is damaged or cut short); choose a range that ends before frame %d", e.Path, e.Frame, e.Frame)
 }

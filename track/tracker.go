@@ -2,6 +2,7 @@ package track
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"image"
 	"math"
@@ -316,6 +317,13 @@ func Run(ctx context.Context, src Source, opts Options, progress func(done, tota
 	for f := 0; f < n; f++ {
 		cur, err := frames.next(ctx)
 		if err != nil {
+			var se *SourceEndedError
+			if errors.As(err, &se) && f >= MinFrames && ctx.Err() == nil {
+				// A video cut short: keep the frames that decoded.
+				set.Frames = set.Frames[:f]
+				set.Stats.Stopped = &Stopped{Frame: src.Name(f), Index: se.Frame, Announced: n, Reason: se.Error()}
+				break
+			}
 			return nil, err
 		}
 		if f == 0 {
@@ -772,7 +780,10 @@ func (t *tracker) predictNew(x, y float64) (vx, vy float64, ok bool) {
 
 // maybeRedetect adds tracks in empty areas of frame f when due.
 func (t *tracker) maybeRedetect(cur *frameBuf, f int) {
-	due := t.o.RedetectEvery > 0 && f%t.o.RedetectEvery == 0
+	// With no live track there is nothing to lose by looking: after a
+	// frame without texture (all black, a dropped frame) the count
+	// reference below is 0 and would otherwise wait for the periodic round.
+	due := len(t.live) == 0 || t.o.RedetectEvery > 0 && f%t.o.RedetectEvery == 0
 	if t.o.RedetectBelow > 0 {
 		ref := min(t.o.Detect.MaxCorners, t.lastDetected)
 		if float64(len(t.live)) < t.o.RedetectBelow*float64(ref) {

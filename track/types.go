@@ -112,6 +112,19 @@ type Stats struct {
 	// Reject is the report of the static-background and outlier checks
 	// (nil when they were off).
 	Reject *RejectReport
+	// Stopped is set when the source ended before its announced length
+	// (a video whose frames stop decoding: a damaged or cut file) after at
+	// least MinFrames frames were read: the frames before it are tracked
+	// and Set.Frames holds only them. Nil when every frame was read.
+	Stopped *Stopped
+}
+
+// Stopped says where a source stopped giving frames.
+type Stopped struct {
+	Frame     string // name of the first frame that could not be read
+	Index     int    // its index in the input's own order (a Range.End that stops before it)
+	Announced int    // frames the source said it had (after its Range)
+	Reason    string // what the source said
 }
 
 // CompleteSubset returns the tracks seen in every frame of [0, nFrames).
