@@ -90,7 +90,9 @@ func TestEveryCodeExplained(t *testing.T) {
 		factor.WarnDisconnectedViews, factor.WarnFramesUnrecovered, factor.WarnOptimumUnverified,
 		// Codes of the refinement and turntable stages (pipeline, factor/turntable).
 		"depth-order-by-convention", "not-single-axis", "uneven-steps", "camera-moved",
-		"refinement-unusable", "turntable-fit-failed"}
+		"refinement-unusable", "turntable-fit-failed",
+		// Codes of the tracking stage (pipeline).
+		"input-stopped", "tracking-option-changed"}
 	generic := Explain("no-such-code")
 	for _, c := range codes {
 		a := Explain(c)
