@@ -125,6 +125,30 @@ func CheckMemory(frames, tracks, observations int, dense bool, cfg Config) error
 		frames, tracks, observations, FormatBytes(need), FormatBytes(limit), why, roundUpSize(need), hint)}
 }
 
+// CheckFramesMemory is the guard's early form, run when the input is opened
+// and before any frame is tracked: it refuses a frame count whose solvers
+// alone (the terms of EstimateMemory that do not depend on the tracks,
+// with the smaller, complete-track path) need more than the limit, so a
+// run that cannot fit fails in a second rather than after the tracking.
+func CheckFramesMemory(frames int, cfg Config) error {
+	limit, why, ok := MemoryLimit(cfg.MaxMemory)
+	if !ok {
+		return nil
+	}
+	need := EstimateMemory(frames, 0, 0, false, !cfg.Refine.Off)
+	if need <= limit {
+		return nil
+	}
+	hint := "use fewer frames (--step, --end)"
+	if !cfg.Refine.Off {
+		if rest := EstimateMemory(frames, 0, 0, false, false); rest <= limit {
+			hint += " or turn the refinement off (--refine=false)"
+		}
+	}
+	return &InputError{fmt.Errorf("pipeline: %d frames need at least %s of memory for the solvers alone, before any track is counted, more than the limit of %s (%s); raise the limit with --max-memory %s if the machine has that much, or %s",
+		frames, FormatBytes(need), FormatBytes(limit), why, roundUpSize(need), hint)}
+}
+
 // memAvailable reads MemAvailable from /proc/meminfo (Linux ≥ 3.14).
 func memAvailable() (int64, error) {
 	f, err := os.Open("/proc/meminfo")

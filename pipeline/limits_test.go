@@ -14,6 +14,7 @@ import (
 	"testing"
 
 	"trackfactor/track"
+	"trackfactor/track/synth"
 )
 
 func TestParseSize(t *testing.T) {
@@ -146,6 +147,35 @@ func TestReconstructMemoryGuard(t *testing.T) {
 		}
 		if _, err := Reconstruct(context.Background(), set, Config{}); err != nil {
 			t.Errorf("incomplete=%v, default limit: %v", incomplete, err)
+		}
+	}
+}
+
+// The early guard: a frame count whose solvers alone exceed the limit is
+// refused when the input is opened, before the first frame is tracked (no
+// tracking progress is reported), with the one-line message naming
+// --max-memory; a limit that holds the solvers but not the tracks lets the
+// tracking run and the later guard refuse.
+func TestRunRefusesFramesBeforeTracking(t *testing.T) {
+	_, dir := renderScene(t, synth.Options{Frames: 6, Width: 160, Height: 120, StepDeg: 2, Seed: 4})
+	solvers := EstimateMemory(6, 0, 0, false, true)
+	for _, c := range []struct {
+		limit   int64
+		tracked bool
+	}{{solvers - 1, false}, {solvers + 1, true}} {
+		tracked := false
+		_, err := Run(context.Background(), Config{Input: dir, MaxMemory: c.limit, Progress: func(stage string, done, total int) {
+			tracked = tracked || stage == "track"
+		}})
+		var ie *InputError
+		if !errors.As(err, &ie) || !strings.Contains(err.Error(), "--max-memory") || strings.Contains(err.Error(), "\n") {
+			t.Errorf("limit %d: got %v, want the one-line memory refusal", c.limit, err)
+		}
+		if tracked != c.tracked {
+			t.Errorf("limit %d (solvers need %d): tracking ran %v, want %v; %v", c.limit, solvers, tracked, c.tracked, err)
+		}
+		if !c.tracked && !strings.Contains(err.Error(), "before any track is counted") {
+			t.Errorf("early refusal does not say it comes before tracking: %v", err)
 		}
 	}
 }
