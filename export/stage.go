@@ -88,10 +88,10 @@ func OpenStage(outDir string, force bool) (*Stage, error) {
 		}
 		if err := os.MkdirAll(outDir, 0o777); err != nil {
 			st.removeCreated()
-			return nil, fmt.Errorf("export: cannot create output folder %s: %v; choose another folder or fix its permissions", outDir, unwrapPath(err))
+			return nil, fmt.Errorf("export: cannot create output folder %s: %w; choose another folder or fix its permissions", outDir, unwrapPath(err))
 		}
 	case err != nil:
-		return nil, fmt.Errorf("export: cannot open output folder %s: %v; check the path", outDir, unwrapPath(err))
+		return nil, fmt.Errorf("export: cannot open output folder %s: %w; check the path", outDir, unwrapPath(err))
 	}
 	for _, name := range ResultFiles() {
 		if err := st.checkTarget(name); err != nil {
@@ -102,7 +102,7 @@ func OpenStage(outDir string, force bool) (*Stage, error) {
 	f, tmp, err := createTemp(outDir, ".trackfactor-probe", 0o666)
 	if err != nil {
 		st.removeCreated()
-		return nil, fmt.Errorf("export: cannot write in output folder %s: %v; choose another folder or fix its permissions", outDir, unwrapPath(err))
+		return nil, fmt.Errorf("export: cannot write in output folder %s: %w; choose another folder or fix its permissions", outDir, unwrapPath(err))
 	}
 	f.Close()
 	os.Remove(tmp)
@@ -121,7 +121,7 @@ func (st *Stage) checkTarget(name string) error {
 		return nil
 	}
 	if err != nil {
-		return fmt.Errorf("export: cannot check %s: %v; check the output folder", path, unwrapPath(err))
+		return fmt.Errorf("export: cannot check %s: %w; check the output folder", path, unwrapPath(err))
 	}
 	if fi.IsDir() {
 		return fmt.Errorf("export: %s is a folder, not a result file; move it away or choose another output folder", path)
@@ -154,7 +154,7 @@ func (st *Stage) Create(name string) (io.WriteCloser, error) {
 	}
 	f, tmp, err := createTemp(st.dir, "."+name+".tmp", 0o666)
 	if err != nil {
-		return nil, fmt.Errorf("export: cannot create a temporary file for %s in %s: %v; check free space and permissions", name, st.dir, unwrapPath(err))
+		return nil, fmt.Errorf("export: cannot create a temporary file for %s in %s: %w; check free space and permissions", name, st.dir, unwrapPath(err))
 	}
 	sf := &stagedFile{name: name, tmp: tmp, f: f}
 	st.files = append(st.files, sf)
@@ -181,7 +181,7 @@ func (st *Stage) Commit() (err error) {
 			return fmt.Errorf("export: %s is still open; close every staged file before Commit (nothing was replaced)", f.name)
 		}
 		if f.err != nil {
-			return fmt.Errorf("export: writing %s failed (%v); nothing was replaced", f.name, f.err)
+			return fmt.Errorf("export: writing %s failed (%w); nothing was replaced", f.name, f.err)
 		}
 		if err := st.checkTarget(f.name); err != nil {
 			return err
@@ -209,9 +209,9 @@ func (st *Stage) Commit() (err error) {
 		old := filepath.Join(st.dir, "."+f.name+".old-"+randomSuffix())
 		if err := st.rename(target, old); err != nil {
 			if rerr := restore(); rerr != nil {
-				return fmt.Errorf("export: cannot move %s aside: %v; %v", target, unwrapPath(err), rerr)
+				return fmt.Errorf("export: cannot move %s aside: %w; %w", target, unwrapPath(err), rerr)
 			}
-			return fmt.Errorf("export: cannot move %s aside: %v; nothing was replaced", target, unwrapPath(err))
+			return fmt.Errorf("export: cannot move %s aside: %w; nothing was replaced", target, unwrapPath(err))
 		}
 		backups = append(backups, backup{target, old})
 	}
@@ -223,9 +223,9 @@ func (st *Stage) Commit() (err error) {
 				os.Remove(p)
 			}
 			if rerr := restore(); rerr != nil {
-				return fmt.Errorf("export: cannot move %s into place: %v; %v", target, unwrapPath(err), rerr)
+				return fmt.Errorf("export: cannot move %s into place: %w; %w", target, unwrapPath(err), rerr)
 			}
-			return fmt.Errorf("export: cannot move %s into place: %v; nothing was replaced", target, unwrapPath(err))
+			return fmt.Errorf("export: cannot move %s into place: %w; nothing was replaced", target, unwrapPath(err))
 		}
 		placed = append(placed, target)
 	}
@@ -295,7 +295,7 @@ func (sf *stagedFile) Write(p []byte) (int, error) {
 	}
 	n, err := sf.f.Write(p)
 	if err != nil {
-		err = fmt.Errorf("export: writing %s: %v", sf.name, unwrapPath(err))
+		err = fmt.Errorf("export: writing %s: %w", sf.name, unwrapPath(err))
 		if sf.err == nil {
 			sf.err = err
 		}
@@ -337,7 +337,7 @@ func WriteFileAtomic(path string, data []byte, perm fs.FileMode) error {
 	}
 	f, tmp, err := createTemp(dir, "."+base+".tmp", perm)
 	if err != nil {
-		return fmt.Errorf("export: cannot write %s: %v; check the folder exists and is writable", path, unwrapPath(err))
+		return fmt.Errorf("export: cannot write %s: %w; check the folder exists and is writable", path, unwrapPath(err))
 	}
 	_, werr := f.Write(data)
 	serr := f.Sync()
@@ -348,7 +348,7 @@ func WriteFileAtomic(path string, data []byte, perm fs.FileMode) error {
 	}
 	if err := os.Rename(tmp, path); err != nil {
 		os.Remove(tmp)
-		return fmt.Errorf("export: cannot replace %s: %v; the file is unchanged", path, unwrapPath(err))
+		return fmt.Errorf("export: cannot replace %s: %w; the file is unchanged", path, unwrapPath(err))
 	}
 	if err := syncDir(dir); err != nil {
 		return fmt.Errorf("export: %s was written but syncing its folder failed (%v); it may not survive a crash", path, err)
