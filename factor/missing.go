@@ -172,6 +172,14 @@ type MissingOptions struct {
 	// Threads is the number of goroutines. Zero means runtime.GOMAXPROCS(0).
 	// Results are deterministic for a fixed Threads.
 	Threads int
+
+	// IterativeAbove is the number of recovered frames above which the
+	// VarPro camera step is solved by preconditioned conjugate gradients
+	// on the point blocks (memory and time per iteration linear in the
+	// observations; see missing_cg.go) instead of forming and factoring
+	// the dense (8F)² camera system. Zero means DefaultIterativeAbove
+	// (200); negative means always dense. The ALS solver ignores it.
+	IterativeAbove int
 }
 
 // withDefaults fills the zero fields; it is idempotent (negative "off"
@@ -207,7 +215,16 @@ func (o MissingOptions) withDefaults() MissingOptions {
 	if o.Threads == 0 {
 		o.Threads = runtime.GOMAXPROCS(0)
 	}
+	if o.IterativeAbove == 0 {
+		o.IterativeAbove = DefaultIterativeAbove
+	}
 	return o
+}
+
+// iterative reports whether the camera step of prob is solved by
+// conjugate gradients (options with defaults).
+func (o MissingOptions) iterative(prob *incProblem) bool {
+	return o.IterativeAbove > 0 && prob.nf > o.IterativeAbove
 }
 
 // Validate reports the first option that breaks its rule.
@@ -266,6 +283,14 @@ type RunReport struct {
 	LiftedIterations int         `json:"lifted_iterations"`
 	Evaluations      int         `json:"evaluations"`
 	Termination      Termination `json:"termination"`
+	// LinearSolver is the solver of the VarPro camera step:
+	// LinearDenseCholesky or LinearPCG (empty for ALS runs, which solve
+	// per camera). CGSolves counts the conjugate-gradient
+	// solves (one per trial step) and CGIterations their iterations, both
+	// stages together; zero for the dense solver.
+	LinearSolver string `json:"linear_solver"`
+	CGSolves     int    `json:"cg_solves"`
+	CGIterations int    `json:"cg_iterations"`
 	// Cost is the final Σ ω‖residual‖², px²; RMS = √(cost/N), px.
 	Cost float64 `json:"cost_px2"`
 	RMS  float64 `json:"rms_px"`
@@ -609,7 +634,7 @@ func incRestarts(ctx context.Context, prob *incProblem, u0 []float64, opts Optio
 		first := len(done)
 		runOne := func(i int) {
 			r := first + i
-			sp := incSolveSpec{solver: mo.Solver, maxIter: mo.MaxIterations, tol: mo.Tolerance, threads: inner}
+			sp := incSolveSpec{solver: mo.Solver, maxIter: mo.MaxIterations, tol: mo.Tolerance, threads: inner, iterative: mo.iterative(prob)}
 			start, start0 := "random", u0
 			if r == 0 {
 				start = "propagation"
@@ -737,7 +762,7 @@ func incRobust(ctx context.Context, st *incState, m *Measurements, opts Options,
 			break
 		}
 		rr.Rounds++
-		out, err := prob.solve(ctx, st.u, incSolveSpec{solver: mo.Solver, maxIter: mo.MaxIterations, tol: mo.Tolerance, threads: mo.Threads})
+		out, err := prob.solve(ctx, st.u, incSolveSpec{solver: mo.Solver, maxIter: mo.MaxIterations, tol: mo.Tolerance, threads: mo.Threads, iterative: mo.iterative(prob)})
 		if err != nil {
 			return err
 		}

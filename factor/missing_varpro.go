@@ -437,6 +437,9 @@ type incSolveSpec struct {
 	// lift > 0 runs a first VarPro stage in dimension 3 + lift from u0
 	// (which must then have that layout) for at most liftIter iterations.
 	lift, liftIter int
+	// iterative solves the VarPro camera step by conjugate gradients
+	// (missing_cg.go) instead of dense Cholesky.
+	iterative bool
 }
 
 // solve runs one minimisation from u0 (copied).
@@ -452,7 +455,7 @@ func (pr *incProblem) solve(ctx context.Context, u0 []float64, sp incSolveSpec) 
 		}
 		var err error
 		// The lifted stage only has to find the basin: a looser tolerance.
-		lifted, err = pr.varpro(ctx, u, dl, sp.liftIter, math.Max(sp.tol, 1e-6), sp.threads)
+		lifted, err = pr.varpro(ctx, u, dl, sp.liftIter, math.Max(sp.tol, 1e-6), sp.threads, sp.iterative)
 		if err != nil {
 			return nil, err
 		}
@@ -476,7 +479,7 @@ func (pr *incProblem) solve(ctx context.Context, u0 []float64, sp incSolveSpec) 
 	if sp.solver == SolverALS {
 		out, err = pr.als(ctx, u, d3, sp.maxIter, sp.tol, sp.threads)
 	} else {
-		out, err = pr.varpro(ctx, u, d3, sp.maxIter, sp.tol, sp.threads)
+		out, err = pr.varpro(ctx, u, d3, sp.maxIter, sp.tol, sp.threads, sp.iterative)
 	}
 	if err != nil {
 		return nil, err
@@ -484,6 +487,8 @@ func (pr *incProblem) solve(ctx context.Context, u0 []float64, sp incSolveSpec) 
 	if lifted != nil {
 		out.report.LiftedIterations = lifted.report.Iterations
 		out.report.Evaluations += lifted.report.Evaluations
+		out.report.CGIterations += lifted.report.CGIterations
+		out.report.CGSolves += lifted.report.CGSolves
 	}
 	s2 := pr.norm.scale * pr.norm.scale
 	for i := range out.report.CostHistory {
@@ -696,24 +701,65 @@ func addOuter2(h []float64, n int, p0, p1 float64, xx []float64, cs int) {
 }
 
 // varpro runs damped Gauss–Newton on the reduced cost f(U) (see the file
-// comment) from the normal-form cameras u (layout d).
-func (pr *incProblem) varpro(ctx context.Context, u []float64, d incDims, maxIter int, tol float64, threads int) (*incRun, error) {
-	w := newIncVPWork(pr, d, threads)
-	n := w.n
+// comment) from the normal-form cameras u (layout d). With iterative the
+// camera step is solved by preconditioned conjugate gradients without
+// forming H (missing_cg.go); otherwise H is formed and factored.
+func (pr *incProblem) varpro(ctx context.Context, u []float64, d incDims, maxIter int, tol float64, threads int, iterative bool) (*incRun, error) {
+	n := d.fs * pr.nf
+	var (
+		build   func(u, X []float64) float64
+		maxDiag func() float64
+		grad    func() []float64
+		step    func(u, X []float64, lambda float64, delta []float64) bool
+		chunks  []int
+		sc      []*incScratch
+	)
+	out := &incRun{report: RunReport{Termination: TermIterationLimit, Evaluations: 1, LinearSolver: LinearDenseCholesky}}
+	if iterative {
+		w := newIncCGWork(pr, d, threads)
+		build = func(u, X []float64) float64 { return w.build(pr, u, X) }
+		maxDiag = w.maxDiag
+		grad = func() []float64 { return w.gs[0] }
+		step = func(u, X []float64, lambda float64, delta []float64) bool {
+			ok := w.solve(pr, u, X, lambda, delta)
+			out.report.CGIterations += w.iters
+			out.report.CGSolves++
+			for i := range delta {
+				delta[i] = -delta[i] // solve returns δ of (H + λI)δ = −g; the loop negates
+			}
+			return ok
+		}
+		chunks, sc = w.chunks, w.sc
+		out.report.LinearSolver = LinearPCG
+	} else {
+		w := newIncVPWork(pr, d, threads)
+		build = func(u, X []float64) float64 { return w.build(pr, u, X) }
+		maxDiag = func() float64 {
+			m := 0.0
+			for i := 0; i < n; i++ {
+				m = math.Max(m, w.hs[0][i*n+i])
+			}
+			return m
+		}
+		grad = func() []float64 { return w.gs[0] }
+		step = func(_, _ []float64, lambda float64, delta []float64) bool {
+			H := w.hs[0]
+			for i := 0; i < n; i++ {
+				copy(w.A[i*n+i:(i+1)*n], H[i*n+i:(i+1)*n])
+				w.A[i*n+i] += lambda
+			}
+			copy(delta, grad())
+			return incCholSolve(w.A, n, delta)
+		}
+		chunks, sc = w.chunks, w.sc
+	}
 	c := pr.gaugeC()
 	X := make([]float64, d.r*pr.np)
 	XT := make([]float64, d.r*pr.np)
 	uT := make([]float64, n)
-	cost := w.build(pr, u, X)
-	out := &incRun{report: RunReport{Termination: TermIterationLimit, Evaluations: 1}}
+	dl := make([]float64, n)
+	cost := build(u, X)
 	out.report.CostHistory = append(out.report.CostHistory, cost)
-	maxDiag := func() float64 {
-		m := 0.0
-		for i := 0; i < n; i++ {
-			m = math.Max(m, w.hs[0][i*n+i])
-		}
-		return m
-	}
 	md := maxDiag()
 	lambda := 1e-2 * md
 	nu := 2.0
@@ -725,22 +771,20 @@ func (pr *incProblem) varpro(ctx context.Context, u []float64, d incDims, maxIte
 			out.report.Termination = TermConverged
 			break
 		}
-		H, g := w.hs[0], w.gs[0]
+		g := grad()
 		incProjectGauge(u, g, pr.nf, d, c)
 		accepted := false
 		var costT float64
 		for !accepted {
+			if err := checkCtx(ctx); err != nil {
+				return nil, err
+			}
 			if lambda > 1e12*md {
 				out.report.Termination = TermNoProgress
 				break
 			}
-			for i := 0; i < n; i++ {
-				copy(w.A[i*n+i:(i+1)*n], H[i*n+i:(i+1)*n])
-				w.A[i*n+i] += lambda
-			}
-			dl := w.delta
-			copy(dl, g)
-			if !incCholSolve(w.A, n, dl) {
+			// step leaves the solution of (H + λI) x = g in dl.
+			if !step(u, X, lambda, dl) {
 				lambda *= nu
 				nu *= 2
 				continue
@@ -757,7 +801,7 @@ func (pr *incProblem) varpro(ctx context.Context, u []float64, d incDims, maxIte
 			ok := incRetract(uT, pr.nf, d, c)
 			if ok {
 				copy(XT, X)
-				costT = pr.evalCost(uT, XT, d, w.chunks, w.sc)
+				costT = pr.evalCost(uT, XT, d, chunks, sc)
 				out.report.Evaluations++
 			}
 			if ok && costT < cost {
@@ -786,7 +830,7 @@ func (pr *incProblem) varpro(ctx context.Context, u []float64, d incDims, maxIte
 			out.report.Termination = TermConverged
 			break
 		}
-		cost = w.build(pr, u, X)
+		cost = build(u, X)
 		md = maxDiag()
 	}
 	out.u, out.X, out.cost = u, X, cost
