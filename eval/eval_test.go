@@ -94,3 +94,39 @@ func TestAlignSimilarity(t *testing.T) {
 		t.Errorf("reflection allowed: rms %.3g", rms)
 	}
 }
+
+// CompareAngles measures angles relative to the first frame and matches
+// the sense of turning: an estimate that is the truth plus an offset,
+// mirrored, is scored as exact; known per-frame errors e_f (zero at the
+// first frame, by the definition relative to it) come back as their RMS,
+// maximum and standard deviation, computed here by hand.
+func TestCompareAngles(t *testing.T) {
+	truth := func(f int) float64 { return 2.5*float64(f) + 0.1*float64(f%3) }
+	frames := []int{3, 4, 5, 6, 8}
+	exact := make([]float64, len(frames))
+	for i, f := range frames {
+		exact[i] = 40 - truth(f) // offset and opposite sense
+	}
+	ae, err := CompareAngles(exact, frames, truth)
+	if err != nil || ae.RMSDeg > 1e-12 || ae.MaxDeg > 1e-12 || ae.Frames != 5 {
+		t.Errorf("mirrored and offset angles: %+v, %v; want 0 error", ae, err)
+	}
+	e := []float64{0, 0.02, -0.01, 0.03, -0.04}
+	est := make([]float64, len(frames))
+	for i, f := range frames {
+		est[i] = truth(f) + 7 + e[i]
+	}
+	ae, err = CompareAngles(est, frames, truth)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rms := math.Sqrt((0 + 0.0004 + 0.0001 + 0.0009 + 0.0016) / 5) // 0.024495
+	mean := (0 + 0.02 - 0.01 + 0.03 - 0.04) / 5                   // 0
+	std := math.Sqrt((0.0004+0.0001+0.0009+0.0016)/5 - mean*mean)
+	if math.Abs(ae.RMSDeg-rms) > 1e-12 || math.Abs(ae.MaxDeg-0.04) > 1e-12 || math.Abs(ae.StdDeg-std) > 1e-12 {
+		t.Errorf("got %+v, want RMS %.6f, max 0.04, std %.6f", ae, rms, std)
+	}
+	if _, err := CompareAngles([]float64{1}, []int{0}, truth); err == nil {
+		t.Error("one angle accepted")
+	}
+}

@@ -2,6 +2,7 @@ package eval
 
 import (
 	"fmt"
+	"math"
 
 	"trackfactor/factor"
 )
@@ -35,6 +36,10 @@ type Report struct {
 	// Points scored, and points whose first observation was not on the
 	// object (background tracks that survived).
 	Points, OffObject int
+	// Scale is the similarity's scale: truth units per reconstruction
+	// unit. When the reconstruction is in the truth's unit (a pixel size
+	// or reference length was given), Scale − 1 is its scale error.
+	Scale float64
 }
 
 // Score compares rec with the truth. first maps track ids to their first
@@ -70,11 +75,60 @@ func Score(rec *factor.Reconstruction, first map[int]Seen, truth Truth) (Report,
 	if len(src) < 3 {
 		return rep, fmt.Errorf("eval: only %d reconstructed points lie on the object", len(src))
 	}
-	_, rms, err := AlignSimilarity(src, dst, affine)
+	sim, rms, err := AlignSimilarity(src, dst, affine)
 	if err != nil {
 		return rep, err
 	}
+	rep.Scale = sim.Scale
 	rep.StructureRMS = rms
 	rep.StructurePct = 100 * rms / truth.Diagonal()
 	return rep, nil
+}
+
+// AngleErrors compares turntable angles with the true ones.
+type AngleErrors struct {
+	// RMSDeg and MaxDeg are over the frames of the comparison, after
+	// both sequences are taken relative to their first frame (the
+	// angles' zero is arbitrary) and the estimate's sense of turning is
+	// matched to the truth's (a mirrored affine result turns the other
+	// way).
+	RMSDeg, MaxDeg float64
+	// StdDeg is the standard deviation of the errors about their mean.
+	StdDeg float64
+	Frames int
+}
+
+// CompareAngles scores estimated turntable angles (degrees, one per frame
+// of frames) against trueDeg, the true angle of a frame.
+func CompareAngles(estDeg []float64, frames []int, trueDeg func(f int) float64) (AngleErrors, error) {
+	n := len(estDeg)
+	if n != len(frames) || n < 2 {
+		return AngleErrors{}, fmt.Errorf("eval: need one angle per frame (≥ 2), got %d angles for %d frames", n, len(frames))
+	}
+	score := func(sign float64) AngleErrors {
+		var e AngleErrors
+		var sum, ss float64
+		errs := make([]float64, n)
+		t0 := trueDeg(frames[0])
+		for i := range estDeg {
+			d := sign*(estDeg[i]-estDeg[0]) - (trueDeg(frames[i]) - t0)
+			errs[i] = d
+			sum += d
+			ss += d * d
+			e.MaxDeg = math.Max(e.MaxDeg, math.Abs(d))
+		}
+		e.RMSDeg = math.Sqrt(ss / float64(n))
+		mean := sum / float64(n)
+		for _, d := range errs {
+			e.StdDeg += (d - mean) * (d - mean)
+		}
+		e.StdDeg = math.Sqrt(e.StdDeg / float64(n))
+		e.Frames = n
+		return e
+	}
+	a, b := score(1), score(-1)
+	if b.RMSDeg < a.RMSDeg {
+		return b, nil
+	}
+	return a, nil
 }

@@ -72,7 +72,8 @@ func demoCommand() *cli.Command {
 				return fmt.Errorf("demo: %w", err)
 			}
 			if !o.common.quiet {
-				fmt.Fprintf(c.App.ErrWriter, "rendering %d frames of %d×%d px into %s\n", scene.Len(), scene.Options().Width, scene.Options().Height, framesDir)
+				so := scene.Options()
+				fmt.Fprintf(c.App.ErrWriter, "rendering %d frames of %d×%d px (orthographic, %.5f mm per pixel: try --pixel-size with it) into %s\n", scene.Len(), so.Width, so.Height, 1/so.PixelsPerMM, framesDir)
 			}
 			if _, err := scene.WriteFrames(c.Context, framesDir, func(done, total int) {
 				if cfg.Progress != nil {
@@ -106,6 +107,14 @@ func demoCommand() *cli.Command {
 				fmt.Fprintf(w, "  depth     %s\n", order)
 				fmt.Fprintf(w, "  structure RMS %.3f mm = %.3f %% of the part's %.1f mm diagonal, over %d points (%d off the part), after similarity alignment\n",
 					rep.StructureRMS, rep.StructurePct, scene.Diagonal(), rep.Points, rep.OffObject)
+				if u := res.Doc.Units; u == "mm" {
+					fmt.Fprintf(w, "  scale     1 mm of the result is %.5f mm of the part (%+.3f %%)\n", rep.Scale, 100*(rep.Scale-1))
+				}
+				if r := res.Refinement; r != nil && r.Turntable != nil {
+					if ae, err := eval.CompareAngles(r.Turntable.AnglesDeg, r.Turntable.Frames, scene.AngleDeg); err == nil {
+						fmt.Fprintf(w, "  turntable angles: error RMS %.4f°, max %.4f°, standard deviation %.4f° over %d frames\n", ae.RMSDeg, ae.MaxDeg, ae.StdDeg, ae.Frames)
+					}
+				}
 			}
 			return nil
 		},
