@@ -257,6 +257,16 @@ func run(ctx context.Context, m *factor.Measurements, rec *factor.Reconstruction
 	if lf, ok := mod.(interface{ focal() (float64, float64) }); ok {
 		sum.InitialFocal, sum.InitialK1 = lf.focal()
 	}
+	iterative := opts.Solver == Schur && opts.IterativeAbove > 0 && p.nf > opts.IterativeAbove
+	var cgs cgSystem
+	switch {
+	case opts.Solver == Dense:
+		sum.LinearSolver = LinearFullCholesky
+	case iterative:
+		sum.LinearSolver = LinearPCG
+	default:
+		sum.LinearSolver = LinearDenseCholesky
+	}
 
 	te := time.Now()
 	ev := p.evaluate(mod, X)
@@ -285,10 +295,27 @@ func run(ctx context.Context, m *factor.Measurements, rec *factor.Reconstruction
 		var dX [][3]float64
 		var pred, gmax float64
 		ok := false
+		cgIters := 0
 		tl := time.Now()
 		if opts.Solver == Dense {
 			dc, dX, pred, _, gmax, ok = lin.denseStep(mod, X, lambda)
 			sum.Timing.Factorize += time.Since(tl)
+		} else if iterative {
+			lin.linearizeCG(mod, X, lambda, &sys, &cgs)
+			sum.Timing.Linearize += time.Since(tl)
+			gmax = sys.gmax
+			if sys.ok {
+				tf := time.Now()
+				dc, ok = lin.solveCamerasCG(&sys, &cgs)
+				cgIters = cgs.iters
+				sum.CGIterations += cgIters
+				sum.Timing.Factorize += time.Since(tf)
+				if ok {
+					tb := time.Now()
+					dX, pred = lin.backSubstitute(mod, X, &sys, dc)
+					sum.Timing.BackSubstitute += time.Since(tb)
+				}
+			}
 		} else {
 			lin.linearize(mod, X, lambda, &sys)
 			sum.Timing.Linearize += time.Since(tl)
@@ -307,7 +334,7 @@ func run(ctx context.Context, m *factor.Measurements, rec *factor.Reconstruction
 		if g0 < 0 {
 			g0 = gmax
 		}
-		rec := Iteration{Iteration: it, Cost: cost, GradientMax: gmax, Damping: lambda}
+		rec := Iteration{Iteration: it, Cost: cost, GradientMax: gmax, Damping: lambda, CGIterations: cgIters}
 		if opts.GradientTolerance > 0 && gmax <= opts.GradientTolerance*g0 && (it > 1 || g0 == 0) {
 			sum.Iterations = it - 1
 			sum.Termination = GradientToleranceReached
@@ -405,7 +432,10 @@ func run(ctx context.Context, m *factor.Measurements, rec *factor.Reconstruction
 
 	res := &Result{final: mod}
 	res.Reconstruction = exportRec(m, rec, st, mod, X, outModel, worldMap, &sum)
-	if !opts.SkipUncertainty && ctxErr == nil {
+	if !opts.SkipUncertainty && ctxErr == nil && opts.UncertaintyMaxCameras > 0 && p.nf > opts.UncertaintyMaxCameras {
+		sum.Message += fmt.Sprintf("; uncertainty not computed: %d cameras is more than UncertaintyMaxCameras = %d (the covariance needs the dense inverse of the %d × %d reduced camera system)",
+			p.nf, opts.UncertaintyMaxCameras, lin.N, lin.N)
+	} else if !opts.SkipUncertainty && ctxErr == nil {
 		tu := time.Now()
 		if opts.Progress != nil {
 			opts.Progress("uncertainty", 0, 1)

@@ -78,6 +78,11 @@ type worker struct {
 	runs               []int
 	cost, gmax         float64
 	ok                 bool
+	// The matrix-free path (cg.go): compact U blocks (U_ff per camera,
+	// U_gf per camera, U_gg), the Schur terms of the diagonal blocks
+	// (Σ W V⁻¹ Wᵀ per camera and for the shared block) and a product
+	// accumulator. Nil for the dense path.
+	uc, ugf, ugg, sff, sgg, out []float64
 }
 
 type linearizer struct {
@@ -91,9 +96,10 @@ func newLinearizer(p *problem, m model) *linearizer {
 	l := &linearizer{p: p, ng: m.ng(), nc: m.nc()}
 	l.N = l.ng + p.nf*l.nc
 	for c := 0; c < len(p.chunks)-1; c++ {
+		// S (N×N) is allocated by the first dense linearisation, so the
+		// matrix-free path never holds it.
 		l.workers = append(l.workers, &worker{
-			S: make([]float64, l.N*l.N), rhs: make([]float64, l.N),
-			grad: make([]float64, l.N), diag: make([]float64, l.N),
+			rhs: make([]float64, l.N), grad: make([]float64, l.N), diag: make([]float64, l.N),
 		})
 	}
 	return l
@@ -158,6 +164,32 @@ func (l *linearizer) pointBlocks(w *worker, m model, X *[3]float64, j int, S []f
 			for b := 0; b < 3; b++ {
 				Wg[3*a+b] += jg0[a]*jx0[b] + jg1[a]*jx1[b]
 			}
+		}
+		if w.uc != nil {
+			// The compact camera blocks of the matrix-free path (cg.go):
+			// U_ff per camera, U_gf per camera and U_gg.
+			ub := w.uc[f*nc*nc : (f+1)*nc*nc]
+			for a := 0; a < nc; a++ {
+				w.grad[base+a] -= jc0[a]*r0 + jc1[a]*r1
+				w.diag[base+a] += jc0[a]*jc0[a] + jc1[a]*jc1[a]
+				for b := 0; b < nc; b++ {
+					ub[a*nc+b] += jc0[a]*jc0[b] + jc1[a]*jc1[b]
+				}
+			}
+			if ng > 0 {
+				ugf := w.ugf[f*ng*nc : (f+1)*ng*nc]
+				for a := 0; a < ng; a++ {
+					w.grad[a] -= jg0[a]*r0 + jg1[a]*r1
+					w.diag[a] += jg0[a]*jg0[a] + jg1[a]*jg1[a]
+					for b := 0; b < ng; b++ {
+						w.ugg[a*ng+b] += jg0[a]*jg0[b] + jg1[a]*jg1[b]
+					}
+					for b := 0; b < nc; b++ {
+						ugf[a*nc+b] += jg0[a]*jc0[b] + jg1[a]*jc1[b]
+					}
+				}
+			}
+			continue
 		}
 		if S == nil {
 			continue
@@ -277,6 +309,12 @@ func (l *linearizer) linearize(m model, X [][3]float64, lambda float64, sys *sys
 	sys.lambda = lambda
 	refD := m.refDir(X[p.ref])
 	sys.refD = refD
+	for _, w := range l.workers {
+		if len(w.S) != N*N {
+			w.S = make([]float64, N*N)
+		}
+		w.uc = nil
+	}
 	p.parallel(func(c, lo, hi int) {
 		w := l.workers[c]
 		clear(w.S)

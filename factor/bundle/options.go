@@ -119,6 +119,20 @@ type Options struct {
 
 	// Solver is the linear solver; "" means Schur.
 	Solver Solver
+	// IterativeAbove is the number of cameras above which the Schur solver
+	// solves the reduced camera system by preconditioned conjugate
+	// gradients without forming it (cg.go: memory and time per iteration
+	// linear in the observations) instead of dense Cholesky (memory
+	// (6F)², time (6F)³/3 per iteration). 0 means DefaultIterativeAbove
+	// (200); negative means always dense.
+	IterativeAbove int
+	// UncertaintyMaxCameras bounds the cameras for which the covariance is
+	// computed: it needs the dense inverse of the reduced camera system
+	// ((6F)² doubles, (6F)³ flops). Above it Result.Uncertainty is nil and
+	// Summary.Message says why. 0 means DefaultUncertaintyMaxCameras
+	// (500: 3000 × 3000, 72 MB per copy, seconds); negative means no
+	// bound.
+	UncertaintyMaxCameras int
 	// Threads is the number of goroutines for the point loops; 0 means
 	// GOMAXPROCS.
 	Threads int
@@ -178,6 +192,12 @@ func (o Options) WithDefaults() Options {
 	}
 	if o.Threads == 0 {
 		o.Threads = runtime.GOMAXPROCS(0)
+	}
+	if o.IterativeAbove == 0 {
+		o.IterativeAbove = DefaultIterativeAbove
+	}
+	if o.UncertaintyMaxCameras == 0 {
+		o.UncertaintyMaxCameras = DefaultUncertaintyMaxCameras
 	}
 	if o.MirrorRatio == 0 {
 		o.MirrorRatio = DefaultMirrorRatio

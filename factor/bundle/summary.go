@@ -48,6 +48,9 @@ type Iteration struct {
 	CostChange float64
 	// GradientMax is the largest gradient component at the linearisation.
 	GradientMax float64
+	// CGIterations of the conjugate-gradient solve of this step (0 for
+	// the dense solvers).
+	CGIterations int
 	// StepNorm is |δ|; Damping the λ the step was solved with; Ratio the
 	// actual over the predicted cost decrease.
 	StepNorm, Damping, Ratio float64
@@ -59,7 +62,7 @@ type Iteration struct {
 // Timing splits the run time by phase.
 type Timing struct {
 	Linearize      time.Duration // Jacobians, normal equations and the Schur complement
-	Factorize      time.Duration // Cholesky of the reduced (or full) system
+	Factorize      time.Duration // Cholesky of the reduced (or full) system, or its conjugate-gradient solve
 	BackSubstitute time.Duration // point updates from the camera step
 	Evaluate       time.Duration // cost of trial points
 	Uncertainty    time.Duration // covariance
@@ -74,6 +77,12 @@ type Summary struct {
 	// LossScale, px.
 	LossScale float64
 	Solver    Solver
+	// LinearSolver is how the step was solved: LinearDenseCholesky or
+	// LinearPCG for Schur (see Options.IterativeAbove),
+	// LinearFullCholesky for Dense. CGIterations is the total of the
+	// conjugate-gradient iterations over all steps.
+	LinearSolver string
+	CGIterations int
 	// ThreadsGiven is Options.Threads as given (0: default), ThreadsUsed
 	// what ran.
 	ThreadsGiven, ThreadsUsed int
@@ -133,8 +142,8 @@ func (s *Summary) Report() string {
 	var b strings.Builder
 	w := func(format string, a ...any) { fmt.Fprintf(&b, format, a...) }
 	w("Bundle adjustment\n")
-	w("  model %s, motion %s, loss %s (scale %.3g px), solver %s, threads %d given / %d used\n",
-		s.Model, s.Motion, s.Loss, s.LossScale, s.Solver, s.ThreadsGiven, s.ThreadsUsed)
+	w("  model %s, motion %s, loss %s (scale %.3g px), solver %s (%s), threads %d given / %d used\n",
+		s.Model, s.Motion, s.Loss, s.LossScale, s.Solver, s.LinearSolver, s.ThreadsGiven, s.ThreadsUsed)
 	w("  problem: %d cameras, %d points (%d skipped), %d observations, n = %d residuals, d = %d parameters\n",
 		s.Cameras, s.Points, s.SkippedPoints, s.Observations, s.Residuals, s.Parameters)
 	w("  gauge: %s\n", s.Gauge)
@@ -158,6 +167,9 @@ func (s *Summary) Report() string {
 	}
 	w("  (x: step rejected)\n\n")
 	w("  iterations %d (%d accepted, %d rejected)\n", s.Iterations, s.SuccessfulSteps, s.RejectedSteps)
+	if s.LinearSolver == LinearPCG {
+		w("  conjugate-gradient iterations: %d in all, %.1f per step\n", s.CGIterations, float64(s.CGIterations)/float64(max(1, s.Iterations)))
+	}
 	w("  termination: %s — %s\n", s.Termination, s.Message)
 	t := s.Timing
 	w("  time: linearize %s, factorize %s, back-substitute %s, evaluate %s, uncertainty %s, total %s\n",
