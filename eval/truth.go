@@ -40,6 +40,9 @@ type Report struct {
 	// unit. When the reconstruction is in the truth's unit (a pixel size
 	// or reference length was given), Scale − 1 is its scale error.
 	Scale float64
+	// PointError is each scored point's distance from its true position
+	// after the alignment, by track id (truth units).
+	PointError map[int]float64
 }
 
 // Score compares rec with the truth. first maps track ids to their first
@@ -58,6 +61,7 @@ func Score(rec *factor.Reconstruction, first map[int]Seen, truth Truth) (Report,
 		return rep, err
 	}
 	var src, dst [][3]float64
+	var ids []int
 	for _, p := range rec.Points {
 		s, ok := first[p.Track]
 		if !ok {
@@ -70,6 +74,7 @@ func Score(rec *factor.Reconstruction, first map[int]Seen, truth Truth) (Report,
 		}
 		src = append(src, p.X)
 		dst = append(dst, X)
+		ids = append(ids, p.Track)
 	}
 	rep.Points = len(src)
 	if len(src) < 3 {
@@ -80,6 +85,11 @@ func Score(rec *factor.Reconstruction, first map[int]Seen, truth Truth) (Report,
 		return rep, err
 	}
 	rep.Scale = sim.Scale
+	rep.PointError = make(map[int]float64, len(ids))
+	for i, id := range ids {
+		y := sim.Apply(src[i])
+		rep.PointError[id] = math.Sqrt(sq(y[0]-dst[i][0]) + sq(y[1]-dst[i][1]) + sq(y[2]-dst[i][2]))
+	}
 	rep.StructureRMS = rms
 	rep.StructurePct = 100 * rms / truth.Diagonal()
 	return rep, nil
