@@ -191,7 +191,7 @@ func Rodrigues(r [3]float64) [3][3]float64 { return expSO3(r) }
 func ParseIntrinsics(data []byte, name string) (Intrinsics, error) {
 	root, isCV, err := decodeYAMLMapping(data)
 	if err != nil {
-		return Intrinsics{}, fmt.Errorf("factor: intrinsics file %s: %v; write JSON or YAML as described in the factor package documentation", name, err)
+		return Intrinsics{}, fmt.Errorf("factor: intrinsics file %s: %v; write JSON or YAML such as {\"fx\": 800, \"fy\": 800, \"cx\": 320, \"cy\": 240} (README, Intrinsics), or give the calibration YAML the OpenCV library writes", name, err)
 	}
 	var in Intrinsics
 	if isCV || mappingValue(root, "camera_matrix") != nil {
