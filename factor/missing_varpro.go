@@ -36,7 +36,11 @@ package factor
 //
 // a (2n×2n) ⊗ ((r+1)×(r+1)) Kronecker product (M the 2n×r stack, Ω the
 // weights), and the gradient is Σ −ω_fp e_fp ⊗ x̃. Every point is
-// independent, so the sums run in parallel.
+// independent, so the sums run in parallel. Up to
+// MissingOptions.IterativeAbove frames (default 200) H is formed and
+// factored by dense Cholesky; beyond, the step is solved by conjugate
+// gradients with products from these point blocks, never forming H
+// (missing_cg.go).
 //
 // # Gauge
 //

@@ -74,8 +74,12 @@
 // (JᵀWJ + λ·D) δ = −JᵀW r with D = diag(JᵀWJ) clamped to [1e-6, 1e32] and
 // W the robust weights ρ'(|r|²) (iteratively reweighted least squares).
 // The points are eliminated (the Schur complement, see linear.go), the
-// reduced camera system is solved by dense Cholesky and the points are
-// back-substituted in parallel. A step is accepted when the cost falls by
+// reduced camera system is solved by dense Cholesky — or, above
+// Options.IterativeAbove cameras (default 200), by conjugate gradients
+// with a block-Jacobi preconditioner and products from the point blocks,
+// never forming it (Agarwal et al., "Bundle Adjustment in the Large",
+// ECCV 2010; see cg.go), so memory and time per iteration stay linear in
+// the observations — and the points are back-substituted in parallel. A step is accepted when the cost falls by
 // at least 1e-3 of the decrease the quadratic model predicts; λ follows
 // Nielsen's rule (Madsen, Nielsen and Tingleff, "Methods for Non-Linear
 // Least Squares Problems", 2004, §3.2). The iterations stop on the first

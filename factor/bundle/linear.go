@@ -28,8 +28,10 @@ import (
 //
 //	S δc = ε_c − Σ_j W_j V_j⁻¹ ε_j,   S = U − Σ_j W_j V_j⁻¹ W_jᵀ,
 //
-// solved by dense Cholesky (cameras are few), then the points by back-
-// substitution, one independent 3×3 solve each:
+// solved by dense Cholesky for up to Options.IterativeAbove cameras
+// (default 200) and beyond by matrix-free preconditioned conjugate
+// gradients (cg.go), then the points by back-substitution, one
+// independent 3×3 solve each:
 //
 //	δp_j = V_j⁻¹ (ε_j − W_jᵀ δc).
 //
