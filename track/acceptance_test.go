@@ -118,42 +118,59 @@ func TestOccluder(t *testing.T) {
 // with its static textured backdrop (synth Backdrop, 30 frames, 1° per
 // frame, noise σ = 1); the renderer's ObjectMask at a track's first
 // observation says whether it lies on the part. Issue 3 asks ≥ 98 % of the
-// kept tracks on the part. Measured with default options: 95 %. Every
-// track off the part starts within 1–6 px of the part's outline: corners
-// that the silhouette forms against the backdrop, which slide with the
-// occluding contour along the epipolar lines (so the affine-epipolar check
-// cannot see them) while half of the window stays on the static backdrop
-// (so they are not static either). The test holds the measured level, 94 %,
-// so that it cannot regress, and logs the share; closing the gap to 98 %
-// is open (see the issue note).
+// kept tracks on the part.
+//
+// Without the occlusion-boundary check (RefineOptions.StaticShare
+// negative) 95.0 % were (603 of 635, measured): every track off the part
+// started 1–6 px from its outline, a backdrop corner or a T-junction of
+// the silhouette with the backdrop, which slides with the occluding
+// contour along the epipolar lines (the affine-epipolar check cannot see
+// it) while half of its window stays on the static backdrop (so it is not
+// static either). With the check (default options): 98.7 % (601 of 609,
+// measured). So the test asks, with default options:
+//   - ≥ 98 % of the kept tracks on the part (issue 3's bound);
+//   - the check costs at most 2 % of the tracks on the part, counted
+//     against the same run with the check off (the bound TestStaticBackdrop
+//     sets for the static-background check).
 func TestBackground(t *testing.T) {
 	if testing.Short() {
 		t.Skip("renders a 30-frame scene; skipped in -short")
 	}
 	sc, src, _ := renderScene(t, synth.Options{Frames: 30, NoiseSigma: 1, Backdrop: true})
-	set, err := Run(context.Background(), src, Options{}, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	checkInvariants(t, set)
 	masks := map[int][]bool{}
-	on := 0
-	for _, tr := range set.Tracks {
-		a := tr.Obs[0]
-		if masks[a.Frame] == nil {
-			masks[a.Frame] = sc.ObjectMask(a.Frame)
+	count := func(o Options) (on int, set *Set) {
+		set, err := Run(context.Background(), src, o, nil)
+		if err != nil {
+			t.Fatal(err)
 		}
-		if onMask(masks[a.Frame], set.Width, a.X, a.Y) {
-			on++
+		checkInvariants(t, set)
+		for _, tr := range set.Tracks {
+			a := tr.Obs[0]
+			if masks[a.Frame] == nil {
+				masks[a.Frame] = sc.ObjectMask(a.Frame)
+			}
+			if onMask(masks[a.Frame], set.Width, a.X, a.Y) {
+				on++
+			}
 		}
+		return on, set
 	}
+	on, set := count(Options{})
+	onOff, setOff := count(Options{Refine: RefineOptions{StaticShare: -1}})
 	share := float64(on) / float64(len(set.Tracks))
 	t.Logf("%d of %d kept tracks start on the part (%.1f %%; issue 3 asks 98 %%); ended %v", on, len(set.Tracks), 100*share, set.Stats.Ended)
+	t.Logf("without the occlusion-boundary check: %d of %d (%.1f %%)", onOff, len(setOff.Tracks), 100*float64(onOff)/float64(len(setOff.Tracks)))
 	if len(set.Tracks) < 300 {
 		t.Fatalf("only %d tracks kept", len(set.Tracks))
 	}
-	if share < 0.94 {
-		t.Errorf("%.1f %% of kept tracks on the part, below the measured 94 %%", 100*share)
+	if set.Stats.Ended[DropBoundary] == 0 {
+		t.Errorf("no track ended as %s", DropBoundary)
+	}
+	if share < 0.98 {
+		t.Errorf("%.1f %% of kept tracks on the part, below issue 3's 98 %%", 100*share)
+	}
+	if float64(on) < 0.98*float64(onOff) {
+		t.Errorf("the occlusion-boundary check kept %d tracks on the part of %d without it (more than 2 %% lost)", on, onOff)
 	}
 }
 

@@ -16,9 +16,12 @@
 //	   │ border / eigenvalue / forward–backward checks, drift-free
 //	   │ refinement against each track's first-frame patch (affine +
 //	   │ gain/bias, inverse compositional), appearance and motion checks,
-//	   │ re-detection in empty areas
+//	   │ occlusion votes (static layer or the track's motion, per patch
+//	   │ pixel), re-detection in empty areas
 //	   ▼
 //	Reject: static background, affine-epipolar outliers (RANSAC)
+//	   ▼
+//	occlusion-boundary check: tracks whose patch centre is static layer
 //	   ▼
 //	Set (tracks, frame names, size, Stats) ──► WriteCSV / ReadCSV
 //

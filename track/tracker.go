@@ -282,8 +282,11 @@ func pyramidLevels(w, h, win, maxLevel int) int {
 //  4. every RedetectEvery frames, or when too few tracks are live, new
 //     corners are detected away (MinDistance) from live tracks.
 //
-// After the last frame, tracks shorter than MinLength are dropped and the
-// static-background and outlier checks run (RejectOptions).
+// After the last frame, tracks shorter than MinLength are dropped, the
+// static-background and outlier checks run (RejectOptions), and then the
+// occlusion-boundary check removes the tracks whose patch centre the votes
+// collected during refinement assign to the static layer of their window
+// (RefineOptions.StaticShare, DropBoundary).
 func Run(ctx context.Context, src Source, opts Options, progress func(done, total int)) (*Set, error) {
 	if src == nil {
 		panic("track: Run with a nil Source")
@@ -355,6 +358,9 @@ func Run(ctx context.Context, src Source, opts Options, progress func(done, tota
 		}
 		t.applyReject(set, rep, before)
 	}
+	if !t.o.Refine.Off && t.o.Refine.StaticShare > 0 {
+		t.applyBoundary(set)
+	}
 	return set, nil
 }
 
@@ -372,7 +378,10 @@ type tracker struct {
 	pool *refinePool // nil when refinement is off
 
 	tracks  []Track
-	reasons []string       // end reason per track id ("" = alive)
+	reasons []string // end reason per track id ("" = alive)
+	// share is the static share of each track's patch centre
+	// (refPatch.staticShare; −1 when unknown), set when the track ends.
+	share   []float64
 	dropped map[string]int // observations dropped, by reason
 	live    []liveTrack
 
@@ -676,6 +685,7 @@ func (t *tracker) step(prev, cur *frameBuf, f int) {
 			reason = DropMotion
 		}
 		if reason != "" {
+			t.noteShare(&l)
 			t.end(l.id, reason)
 			continue
 		}
@@ -850,7 +860,7 @@ func (t *tracker) detectNew(cur *frameBuf, f int) {
 			xs[k], ys[k] = c.X, c.Y
 		}
 		t.rp = slices.Grow(t.rp[:0], m)[:m]
-		t.pool.build(&cur.fl, t.rp, xs, ys, t.o.Refine.HalfPatch)
+		t.pool.build(&cur.fl, t.rp, xs, ys, t.o.Refine.HalfPatch, &t.o.Refine)
 	}
 	for k, c := range t.newc {
 		id := len(t.tracks)
@@ -865,6 +875,7 @@ func (t *tracker) detectNew(cur *frameBuf, f int) {
 				tr.Obs = []Observation{{Frame: f, X: c.X, Y: c.Y}}
 				t.tracks = append(t.tracks, tr)
 				t.reasons = append(t.reasons, DropLowEigen)
+				t.share = append(t.share, -1)
 				continue
 			}
 			q = 1
@@ -872,6 +883,7 @@ func (t *tracker) detectNew(cur *frameBuf, f int) {
 		tr.Obs = []Observation{{Frame: f, X: c.X, Y: c.Y, Quality: q}}
 		t.tracks = append(t.tracks, tr)
 		t.reasons = append(t.reasons, "")
+		t.share = append(t.share, -1)
 		l := liveTrack{id: id, x: c.X, y: c.Y, ref: ref}
 		l.vx, l.vy, l.hasPred = t.predictNew(c.X, c.Y)
 		t.live = append(t.live, l)
@@ -958,9 +970,24 @@ func sampleRGB(bgr []uint8, w, h int, x, y float64) [3]uint8 {
 	return out
 }
 
+// noteShare records the static share of live track l's patch centre
+// (occlusion-boundary check) before its reference patch is let go.
+func (t *tracker) noteShare(l *liveTrack) {
+	if l.ref == nil {
+		return
+	}
+	if s, ok := l.ref.staticShare(t.o.Refine.HalfPatch); ok {
+		t.share[l.id] = s
+	}
+}
+
 // finish moves the tracks into set, dropping short ones, and fills Stats.
+// It also records the static share of the tracks still followed.
 func (t *tracker) finish(set *Set) {
 	st := &set.Stats
+	for i := range t.live {
+		t.noteShare(&t.live[i])
+	}
 	for id := range t.tracks {
 		tr := t.tracks[id]
 		if len(tr.Obs) < t.o.MinLength {
@@ -969,6 +996,7 @@ func (t *tracker) finish(set *Set) {
 			t.reasons[id] = DropTooShort
 			continue
 		}
+
 		if r := t.reasons[id]; r != "" {
 			st.Ended[r]++
 		} else {
@@ -983,6 +1011,41 @@ func (t *tracker) finish(set *Set) {
 	st.Live = t.liveCount
 }
 
+// applyBoundary removes the tracks whose patch centre belongs to the
+// static layer of their window (occlusion-boundary check,
+// RefineOptions.StaticShare), moving each from its previous reason to
+// DropBoundary and counting its observations as dropped. It runs after
+// Reject, so that tracks on static background are reported as such.
+func (t *tracker) applyBoundary(set *Set) {
+	st := &set.Stats
+	kept := set.Tracks[:0]
+	for _, tr := range set.Tracks {
+		if t.share[tr.ID] <= t.o.Refine.StaticShare {
+			kept = append(kept, tr)
+			continue
+		}
+		t.moveReason(st, tr.ID, DropBoundary)
+		st.DroppedObs[DropBoundary] += len(tr.Obs)
+	}
+	clear(set.Tracks[len(kept):])
+	set.Tracks = kept
+}
+
+// moveReason moves track id's count in st from its current reason (or
+// Alive) to reason to.
+func (t *tracker) moveReason(st *Stats, id int, to string) {
+	if r := t.reasons[id]; r != "" {
+		st.Ended[r]--
+		if st.Ended[r] == 0 {
+			delete(st.Ended, r)
+		}
+	} else {
+		st.Alive--
+	}
+	st.Ended[to]++
+	t.reasons[id] = to
+}
+
 // applyReject moves the counts of tracks the rejection removed or cut from
 // their previous reason to the rejection's, and counts the observations it
 // removed (before: each track's observation count before rejection).
@@ -992,18 +1055,7 @@ func (t *tracker) applyReject(set *Set, rep *RejectReport, before map[int]int) {
 	for _, tr := range set.Tracks {
 		after[tr.ID] = len(tr.Obs)
 	}
-	move := func(id int, to string) {
-		if r := t.reasons[id]; r != "" {
-			st.Ended[r]--
-			if st.Ended[r] == 0 {
-				delete(st.Ended, r)
-			}
-		} else {
-			st.Alive--
-		}
-		st.Ended[to]++
-		t.reasons[id] = to
-	}
+	move := func(id int, to string) { t.moveReason(st, id, to) }
 	for _, id := range rep.Static {
 		move(id, DropStatic)
 		st.DroppedObs[DropStatic] += before[id]

@@ -74,8 +74,9 @@ const (
 	DropOutlier     = "outlier"
 	DropMotion      = "motion-jump" // moved unlike its prediction (Options.MotionCheckPx)
 	DropStatic      = "static-background"
-	DropIncomplete  = "incomplete" // not seen in every frame (complete-track models only)
-	DropTooShort    = "too-short"  // fewer observations than the minimum track length
+	DropBoundary    = "occlusion-boundary" // the patch centre belongs to the static layer of its window (RefineOptions.StaticShare)
+	DropIncomplete  = "incomplete"         // not seen in every frame (complete-track models only)
+	DropTooShort    = "too-short"          // fewer observations than the minimum track length
 )
 
 // Stats counts what the tracker did. Dropped maps a Drop* reason to the

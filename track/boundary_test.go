@@ -1,0 +1,85 @@
+package track
+
+import (
+	"testing"
+)
+
+// twoLayerFrames makes an invented two-layer sequence on a smooth random
+// texture (noiseImage, green channel): in frame k the columns x < edge
+// show the texture where it was in frame 0 (a static layer), the columns
+// x ≥ edge show it moved right by k·v pixels (a moving layer), v an
+// integer so that every frame is an exact copy of texture pixels.
+func twoLayerFrames(w, h, n, edge, v int) []floatImage {
+	tex := noiseImage(w+n*v, h, 7)
+	out := make([]floatImage, n)
+	for k := range out {
+		im := floatImage{w: w, h: h, pix: make([]float32, w*h)}
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				sx := x
+				if x >= edge {
+					sx = x - k*v + n*v // the texture is n·v wider: stay inside it
+				} else {
+					sx = x + n*v
+				}
+				im.pix[y*w+x] = float32(tex.Pix[tex.PixOffset(sx, y)+1])
+			}
+		}
+		out[k] = im
+	}
+	return out
+}
+
+// TestOcclusionVotes checks the occlusion-boundary votes on the invented
+// two-layer sequence of twoLayerFrames (static left of x = 100, moving
+// right 1 px per frame from it), with the tracker's default patch (half
+// 7) and StaticDiff (3 grey levels): the warp of each patch is set to what
+// a tracker would follow (the moving layer's motion, or none), as the
+// refinement leaves it. Expected by construction:
+//   - a patch centred 4 px left of the edge (on the static layer) whose
+//     warp follows the moving layer, like a backdrop corner dragged by the
+//     part next to it, has a static share above 0.5 (most of its centre
+//     is explained by zero motion);
+//   - a patch centred 4 px right of the edge (on the moving layer) that
+//     follows it has a share below 0.2 (only its left rim is static);
+//   - a patch far inside the moving layer that follows it has a share of
+//     0 (nothing there is static);
+//   - a patch far inside the static layer that does not move has no
+//     informative pixel (both hypotheses are the same): ok false.
+func TestOcclusionVotes(t *testing.T) {
+	const w, h, n, edge, v, half = 200, 120, 6, 100, 1, 7
+	frames := twoLayerFrames(w, h, n, edge, v)
+	cases := []struct {
+		name    string
+		x, y    float64
+		vx      float64 // the warp's motion per frame
+		lo, hi  float64 // expected share in [lo, hi]
+		wantAny bool    // some pixel voted
+	}{
+		{"static corner dragged by the moving layer", edge - 4, 60, v, 0.5, 1, true},
+		{"moving corner next to the edge", edge + 4, 60, v, 0, 0.2, true},
+		{"moving corner far from the edge", edge + 40, 60, v, 0, 0, true},
+		{"static corner far from the edge, not moving", edge - 40, 60, 0, 0, 0, false},
+	}
+	var buf [(2*maxHalfPatch + 1) * (2*maxHalfPatch + 1)]float32
+	for _, c := range cases {
+		p, ok := newRefPatch(&frames[0], c.x, c.y, half, nil)
+		if !ok {
+			t.Fatalf("%s: no reference patch", c.name)
+		}
+		p.votes = make([]uint16, 2*(2*half+1)*(2*half+1))
+		for k := 1; k < n; k++ {
+			p.m[2] = c.x + c.vx*float64(k)
+			p.occlusionVotes(&frames[k], half, defaultDiff, buf[:])
+		}
+		s, any := p.staticShare(half)
+		t.Logf("%s: static share %.3f (voted %v)", c.name, s, any)
+		if any != c.wantAny {
+			t.Errorf("%s: some pixel voted = %v, want %v", c.name, any, c.wantAny)
+			continue
+		}
+		if any && (s < c.lo || s > c.hi) {
+			t.Errorf("%s: static share %.3f outside [%g, %g]", c.name, s, c.lo, c.hi)
+		}
+	}
+}
