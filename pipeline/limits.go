@@ -8,19 +8,20 @@ import (
 	"os"
 	"strconv"
 	"strings"
+	"trackfactor/factor"
+	"trackfactor/factor/bundle"
 
 	"trackfactor/track"
 )
 
 // Memory guard. A reconstruction's memory grows with the observations
-// (frames × tracks when every track is complete) and, through the dense
-// camera systems of bundle adjustment and of the missing-data solver, with
-// the square of the frames. A
-// long sequence with many tracks can need more memory than the machine
-// has; rather than let the operating system kill the run (or let it swap
-// for hours), Reconstruct estimates the peak before building the
-// measurement matrix and refuses, with a message naming --max-memory,
-// when the estimate is above the limit.
+// (frames × tracks when every track is complete), with the dense 2F×P
+// matrix of the missing-data path and, for up to a few hundred frames,
+// with the square of the frames through the dense camera systems of the
+// solvers. A long sequence with many tracks can need more memory than the
+// machine has; rather than let the operating system kill the run (or let
+// it swap for hours), the pipeline estimates the peak and refuses, with a
+// message naming --max-memory, when the estimate is above the limit.
 //
 // The estimate (bytes), for F frames, P tracks and N observations, is a
 // sum of the stages' peaks (an upper bound: they do not all hold their
@@ -30,11 +31,18 @@ import (
 //	                                  Jacobian blocks, the documents written
 //	+ DenseBytesPerEntry·F·P          (incomplete tracks) the dense 2F×P matrix, its mask and the
 //	                                  missing-data solver's weights
-//	+ MissingSystemCopies·8·(8F)²     (incomplete tracks) the missing-data solver's normal equations on
-//	                                  8 camera unknowns per frame: one per thread, the system solved,
-//	                                  its Cholesky factor, and the collector's headroom
-//	+ ReducedSystemCopies·8·(6F)²     (refinement on) bundle adjustment's reduced camera system on 6
-//	                                  parameters per frame: one per thread, its Cholesky factor, the covariance
+//	+ MissingSystemCopies·8·(8F)²     (incomplete tracks, F ≤ factor.DefaultIterativeAbove) the
+//	                                  missing-data solver's normal equations on 8 camera unknowns per
+//	                                  frame: one per thread, the system solved, its Cholesky factor,
+//	                                  and the collector's headroom; above that threshold the camera
+//	                                  step is matrix-free conjugate gradients:
+//	                                  CGBytesPerObservation·N + CGBytesPerFrame·F
+//	+ ReducedSystemCopies·8·(6F)²     (refinement on, F ≤ bundle.DefaultUncertaintyMaxCameras) bundle
+//	                                  adjustment's reduced camera system on 6 parameters per frame and
+//	                                  the covariance's dense inverse (one per thread, its factor, the
+//	                                  inverse); above it neither is formed (conjugate gradients, no
+//	                                  covariance): BABytesPerObservation·N + BABytesPerPoint·P +
+//	                                  BABytesPerFrame·F
 //
 // For complete tracks N = F·P, so the first term is 8·2F·P·25: the
 // measurement matrix times a factor of 25 for everything kept per
@@ -45,20 +53,28 @@ import (
 // 200 × 2000, 500 × 300, 1000 × 200 and 100 × 10 000 frames × tracks (the
 // estimate is 1.2 to 2 times the measured peak), and tracks of the
 // synthetic part turning 1° per frame, each seen in about half a turn:
-// 360 frames × 3000 tracks (1.5 times) and 1000 frames × 4790 tracks of
-// `trackfactor run` (4.3 GiB estimated, 3.75 GiB measured through the
-// missing-data solver and into bundle adjustment). Up to 100 frames the
-// missing-data solver runs two restarts at once with one more unknown per
-// camera, up to 48 MiB more than the formula, within the margin the
-// default limit leaves. TestMemoryEstimateCoversPeak checks the estimate
-// against the operating system's count.
+// 360 frames × 3000 tracks (1.5 times). The conjugate-gradient terms are
+// the solvers' own per-observation and per-camera buffers (factor/
+// missing_cg.go, factor/bundle/cg.go) rounded up; a 1000-frame run of the
+// rendered part (4401 tracks, 369 000 observations) peaked at 675 MB, 585 MB
+// above the baseline, tracking included; the estimate is 570 MB (the
+// constants are twice the buffers for the garbage collector's headroom).
+// Up to 100 frames the missing-data solver runs two restarts at once with
+// one more unknown per camera, up to 48 MiB more than the formula, within
+// the margin the default limit leaves. TestMemoryEstimateCoversPeak checks
+// the estimate against the operating system's count.
 const (
 	BytesPerObservation           = 400
 	IncompleteBytesPerObservation = 400
 	DenseBytesPerEntry            = 50
 	MissingUnknownsPerFrame       = 8
 	MissingSystemCopies           = 6
-	ReducedSystemCopies           = 4
+	ReducedSystemCopies           = 5
+	CGBytesPerObservation         = 128
+	CGBytesPerFrame               = 4096
+	BABytesPerObservation         = 400
+	BABytesPerPoint               = 120
+	BABytesPerFrame               = 1024
 	// DefaultMemoryFraction is the share of the memory available when the
 	// run starts (MemAvailable of /proc/meminfo) that the limit is by
 	// default.
@@ -73,12 +89,21 @@ func EstimateMemory(frames, tracks, observations int, dense, refine bool) int64 
 	f, p, n := float64(frames), float64(tracks), float64(observations)
 	b := BytesPerObservation * n
 	if dense {
-		c := MissingUnknownsPerFrame * f
-		b = IncompleteBytesPerObservation*n + DenseBytesPerEntry*f*p + MissingSystemCopies*8*c*c
+		b = IncompleteBytesPerObservation*n + DenseBytesPerEntry*f*p
+		if frames <= factor.DefaultIterativeAbove {
+			c := MissingUnknownsPerFrame * f
+			b += MissingSystemCopies * 8 * c * c
+		} else {
+			b += CGBytesPerObservation*n + CGBytesPerFrame*f
+		}
 	}
 	if refine {
-		c := 6 * f
-		b += ReducedSystemCopies * 8 * c * c
+		if frames <= bundle.DefaultUncertaintyMaxCameras {
+			c := 6 * f
+			b += ReducedSystemCopies * 8 * c * c
+		} else {
+			b += BABytesPerObservation*n + BABytesPerPoint*p + BABytesPerFrame*f
+		}
 	}
 	if b > 1<<62 {
 		return 1 << 62
@@ -116,7 +141,7 @@ func CheckMemory(frames, tracks, observations int, dense bool, cfg Config) error
 	}
 	hint := "use fewer frames (--step, --end) or fewer tracks (--corners)"
 	if 2*EstimateMemory(frames, 0, 0, dense, !cfg.Refine.Off) > need {
-		hint = "use fewer frames (--step, --end): the solvers' memory grows with the square of the frames"
+		hint = "use fewer frames (--step, --end): up to a few hundred frames the solvers' memory grows with the square of the frames"
 		if !cfg.Refine.Off {
 			hint += "; turning the refinement off (--refine=false) saves " + FormatBytes(EstimateMemory(frames, 0, 0, false, true))
 		}

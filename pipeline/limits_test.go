@@ -92,8 +92,13 @@ func TestEstimateMemory(t *testing.T) {
 	if got, want := EstimateMemory(f, p, f*p, false, true), int64(BytesPerObservation*f*p+ReducedSystemCopies*8*36*f*f); got != want {
 		t.Errorf("complete, refined: %d, want %d", got, want)
 	}
-	if got, want := EstimateMemory(f, p, f*p/4, true, false), int64(IncompleteBytesPerObservation*f*p/4+DenseBytesPerEntry*f*p+MissingSystemCopies*8*64*f*f); got != want {
-		t.Errorf("incomplete: %d, want %d", got, want)
+	// 300 frames: above the missing-data solver's dense limit (200).
+	if got, want := EstimateMemory(f, p, f*p/4, true, false), int64(IncompleteBytesPerObservation*f*p/4+DenseBytesPerEntry*f*p+CGBytesPerObservation*f*p/4+CGBytesPerFrame*f); got != want {
+		t.Errorf("incomplete, %d frames: %d, want %d", f, got, want)
+	}
+	const g = 150
+	if got, want := EstimateMemory(g, p, g*p/4, true, false), int64(IncompleteBytesPerObservation*g*p/4+DenseBytesPerEntry*g*p+MissingSystemCopies*8*64*g*g); got != want {
+		t.Errorf("incomplete, %d frames: %d, want %d", g, got, want)
 	}
 	if got := EstimateMemory(1<<30, 1<<30, math.MaxInt, true, true); got != 1<<62 {
 		t.Errorf("huge sizes: %d, want the cap 2^62", got)
@@ -123,8 +128,9 @@ func TestCheckMemory(t *testing.T) {
 	if err := CheckMemory(f, p, f*p, false, Config{MaxMemory: need}); err != nil {
 		t.Errorf("at the limit: %v", err)
 	}
-	// The square term dominates for long sequences: the hint says so.
-	err = CheckMemory(5000, 10, 50000, false, Config{MaxMemory: 1 << 20})
+	// Up to 500 frames the square term dominates a sequence with few tracks:
+	// the hint says so.
+	err = CheckMemory(400, 10, 4000, false, Config{MaxMemory: 1 << 20})
 	if err == nil || !strings.Contains(err.Error(), "square of the frames") || !strings.Contains(err.Error(), "--refine=false") {
 		t.Errorf("long sequence: %v", err)
 	}
@@ -287,7 +293,7 @@ func TestMemoryEstimateCoversPeak(t *testing.T) {
 	for _, c := range []struct {
 		f, p       int
 		incomplete bool
-	}{{200, 1500, false}, {120, 1500, true}} {
+	}{{200, 1500, false}, {120, 1500, true}, {600, 600, true}} {
 		set := syntheticTracks(c.f, c.p, c.incomplete, 3)
 		obs := 0
 		for _, tr := range set.Tracks {
@@ -304,5 +310,27 @@ func TestMemoryEstimateCoversPeak(t *testing.T) {
 		// difference of two process peaks (the baseline already holds the
 		// OpenCV libraries), and the runtime may reuse freed memory, so a
 		// small measured value does not mean the estimate is wasteful.
+	}
+}
+
+// Above the solvers' thresholds (factor.DefaultIterativeAbove frames for
+// the missing-data camera step, bundle.DefaultUncertaintyMaxCameras for
+// bundle adjustment's dense systems) the estimate is linear in frames,
+// tracks and observations: no term in F², so 3000 frames with few tracks
+// need little and tripling frames, tracks and observations triples it
+// (within the fixed per-frame terms).
+func TestEstimateMemoryLinearAboveThresholds(t *testing.T) {
+	a := EstimateMemory(1000, 4000, 400_000, true, true)
+	b := EstimateMemory(3000, 12000, 1_200_000, true, true)
+	// The dense 2F×P matrix of the missing-data path is F·P: ×9.
+	wantB := 3*(a-int64(DenseBytesPerEntry*1000*4000)) + int64(DenseBytesPerEntry*3000*12000)
+	if b != wantB {
+		t.Errorf("3000 frames: %d, want %d (linear terms ×3, the dense matrix ×9)", b, wantB)
+	}
+	if got := EstimateMemory(3000, 10, 1000, false, true); got > 16<<20 {
+		t.Errorf("3000 frames × 10 tracks on the complete path: %s, want no F² term", FormatBytes(got))
+	}
+	if sq := EstimateMemory(400, 0, 0, false, true); sq != int64(ReducedSystemCopies*8*2400*2400) {
+		t.Errorf("400 frames: %d, want the dense reduced system %d", sq, ReducedSystemCopies*8*2400*2400)
 	}
 }
