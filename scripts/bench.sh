@@ -165,7 +165,19 @@ headline() {
 	for size in $(printf '%s\n' "$md" | awk '/^BenchmarkMissingData\//{ n = $1; sub(/^BenchmarkMissingData\//, "", n); sub(/-[0-9]+$/, "", n); print n }'); do
 		row "missing-data solver to convergence (VarPro, restarts, robust rounds)" "$(times "$size") frames × tracks, half seen, $(metric "$md" "BenchmarkMissingData/$size" coordinates) coordinates" \
 			"$(metric "$md" "BenchmarkMissingData/$size" ms/solve) ms ($(metric "$md" "BenchmarkMissingData/$size" runs) runs, $(metric "$md" "BenchmarkMissingData/$size" ms/iter) ms per iteration)" \
-			"per iteration: linear in observations + (8F)³ for the dense camera system"
+			"per iteration: linear in observations + (8F)³ for the dense camera system (used up to 200 frames)"
+	done
+
+	# Long sequences: the dense camera step against the matrix-free PCG one
+	# (factor/missing_cg.go) on turntable-like tracks.
+	local ml name
+	ml=$(TF_BENCH_LARGE=$large go test -run '^$' -bench '^BenchmarkIncompleteLong$' -benchtime 1x ./factor)
+	for name in $(printf '%s\n' "$ml" | awk '/^BenchmarkIncompleteLong\// && !/SKIP/ { n = $1; sub(/^BenchmarkIncompleteLong\//, "", n); sub(/-[0-9]+$/, "", n); print n }'); do
+		local cgs
+		cgs=$(metric "$ml" "BenchmarkIncompleteLong/$name" cg/solve)
+		row "missing-data solver, long sequence, ${name#*/} camera step" "$(times "${name%%/*}") frames × tracks (tracks of ~40 frames)" \
+			"$(metric "$ml" "BenchmarkIncompleteLong/$name" median-s) s ($(metric "$ml" "BenchmarkIncompleteLong/$name" iters) iterations, $(metric "$ml" "BenchmarkIncompleteLong/$name" ms/iter) ms each${cgs:+, $cgs CG iterations per step})" \
+			"dense: (8F)³ per iteration; pcg: linear in observations per CG iteration, CG iterations grow slowly with F"
 	done
 
 	local basizes=(72x2000)
@@ -178,7 +190,17 @@ headline() {
 	for s in "${basizes[@]}"; do
 		row "bundle adjustment to convergence (Schur, robust loss)" "$(times "$s") cameras × points, 30 % seen" \
 			"$(metric "$ba" "BenchmarkAdjust$s" ms/converged) ms ($(metric "$ba" "BenchmarkAdjust$s" iters) iterations, $(metric "$ba" "BenchmarkAdjust$s" ms/iter) ms each)" \
-			"per iteration: linear in observations + (6F)³ for the dense reduced camera system"
+			"per iteration: linear in observations + (6F)³ for the dense reduced camera system (used up to 200 cameras)"
+	done
+
+	local bl
+	bl=$(TF_BENCH_LARGE=$large go test -run '^$' -bench '^BenchmarkAdjustLong$' -benchtime 1x ./factor/bundle)
+	for name in $(printf '%s\n' "$bl" | awk '/^BenchmarkAdjustLong\// && !/SKIP/ { n = $1; sub(/^BenchmarkAdjustLong\//, "", n); sub(/-[0-9]+$/, "", n); print n }'); do
+		local cgi
+		cgi=$(metric "$bl" "BenchmarkAdjustLong/$name" cg/iter)
+		row "bundle adjustment, long sequence, ${name#*/} reduced system" "$(times "${name%%/*}") cameras × points (arcs of 40–90 cameras)" \
+			"$(metric "$bl" "BenchmarkAdjustLong/$name" ms/converged) ms ($(metric "$bl" "BenchmarkAdjustLong/$name" iters) iterations, $(metric "$bl" "BenchmarkAdjustLong/$name" ms/iter) ms each${cgi:+, $cgi CG iterations per step})" \
+			"dense: (6F)³ per iteration; pcg: linear in observations per CG iteration, CG iterations grow with F / arc length"
 	done
 
 	go build -o "$tmp/trackfactor" ./cmd/trackfactor
@@ -208,7 +230,7 @@ headline() {
 					"the tracks only (about 32 B per observation): frames are decoded, tracked and released"
 			else
 				row "peak memory, trackfactor run" "$n frames 640×480 (1° per frame)" "$val" \
-					"400 B per observation + 32·(6F)² B for bundle adjustment (+ 50 B per frame × track and 48·(8F)² B for the missing-data solver on incomplete tracks): pipeline/limits.go"
+					"linear in observations above 500 frames; up to there + 40·(6F)² B for bundle adjustment's dense systems (and 48·(8F)² B for the missing-data solver up to 200 frames): pipeline/limits.go"
 			fi
 		done
 	done
