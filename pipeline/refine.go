@@ -149,6 +149,10 @@ type Refinement struct {
 // chosen by convention (camera above the turntable), not by the data.
 const WarnDepthConvention = "depth-order-by-convention"
 
+// WarnNoUncertainty: the refinement ran but computed no covariance (too
+// many cameras).
+const WarnNoUncertainty = "uncertainty-not-computed"
+
 // usedMeasurements rebuilds the measurement matrix of the tracks the
 // reconstruction used, over all frames of the set, with a mask when any
 // entry is missing.
@@ -225,6 +229,9 @@ func refine(ctx context.Context, res *Result, cfg Config) error {
 		out.Uncertainty = nil
 	}
 	res.Timing["refine"] = time.Since(t0).Seconds()
+	if lim := bo.WithDefaults().UncertaintyMaxCameras; out.Summary != nil && out.Summary.Usable() && out.Uncertainty == nil && lim > 0 && len(res.Rec.Cameras) > lim {
+		res.Rec.Diagnostics.Warn(WarnNoUncertainty, fmt.Sprintf("no uncertainties (sigma) were computed: %d cameras is more than the %d the covariance is computed for (it needs a dense inverse of the whole camera system); reconstruct a subset of the frames (--step, --end) to get them", len(res.Rec.Cameras), lim))
+	}
 
 	if out.Turntable == nil && len(res.Rec.Cameras) >= 3 {
 		fitOpts.Uncertainty = out.Uncertainty

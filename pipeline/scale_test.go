@@ -196,3 +196,52 @@ func TestPLYSigmaProperty(t *testing.T) {
 		t.Errorf("no comment explains the sigma property: %q", ply.Comments)
 	}
 }
+
+// When the refinement computes no covariance because there are more
+// cameras than bundle.Options.UncertaintyMaxCameras (here lowered to 5 so
+// a small set shows it), the result says so in an informational warning,
+// its points carry no sigma, and --ply-sigma writes −1 for every point.
+func TestNoUncertaintyAboveCameraLimit(t *testing.T) {
+	set := syntheticTracks(12, 60, false, 5)
+	cfg := Config{Out: filepath.Join(t.TempDir(), "out"), PLYSigma: true, PLYASCII: true}
+	cfg.Refine.Bundle.UncertaintyMaxCameras = 5
+	res, err := Reconstruct(context.Background(), set, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	found := false
+	for _, w := range res.Rec.Diagnostics.Warnings {
+		found = found || w.Code == WarnNoUncertainty && strings.Contains(w.Message, "12 cameras")
+	}
+	if !found {
+		t.Errorf("no %s warning naming the 12 cameras: %+v", WarnNoUncertainty, res.Rec.Diagnostics.Warnings)
+	}
+	for _, p := range res.Doc.Points {
+		if p.Sigma != nil {
+			t.Fatalf("point of track %d has sigma %v without a covariance", p.Track, *p.Sigma)
+		}
+	}
+	if err := Write(res, cfg); err != nil {
+		t.Fatal(err)
+	}
+	b, err := os.ReadFile(filepath.Join(cfg.Out, export.FilePoints))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ply, err := export.ReadPLY(bytes.NewReader(b))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, p := range ply.Elements[0].Properties {
+		if p.Name != "sigma" {
+			continue
+		}
+		for i, v := range p.Scalar {
+			if v != export.SigmaUnknown {
+				t.Fatalf("vertex %d: sigma %v, want %v", i, v, export.SigmaUnknown)
+			}
+		}
+		return
+	}
+	t.Error("points.ply has no sigma property")
+}

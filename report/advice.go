@@ -24,6 +24,11 @@ func adviceTable() map[string]Advice {
 			"The affine model cannot tell which way depth runs; the result shown assumes the camera looks down on the turntable, the usual set-up.",
 			"Nothing if the camera looks down on the part; if it looks up, depth is reversed. Give --intrinsics so a perspective refinement decides from the data.",
 		},
+		"uncertainty-not-computed": {
+			"No uncertainties for this many frames",
+			"The refinement ran, but the point and angle standard deviations need the inverse of the whole camera system, which is computed only up to a few hundred frames; sigma is absent (and -1 in points.ply with --ply-sigma).",
+			"Reconstruct every second or third frame (--step 2 or 3) or a part of the sequence (--end) to get the uncertainties.",
+		},
 		"input-stopped": {
 			"The video stopped early",
 			"Frames stopped decoding part way through the video (a damaged or cut file); the result uses only the frames before that point.",

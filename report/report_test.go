@@ -92,7 +92,7 @@ func TestEveryCodeExplained(t *testing.T) {
 		"depth-order-by-convention", "not-single-axis", "uneven-steps", "camera-moved",
 		"refinement-unusable", "turntable-fit-failed",
 		// Codes of the tracking stage (pipeline).
-		"input-stopped", "tracking-option-changed"}
+		"input-stopped", "tracking-option-changed", "uncertainty-not-computed"}
 	generic := Explain("no-such-code")
 	for _, c := range codes {
 		a := Explain(c)
