@@ -325,20 +325,35 @@ func (f *Fit) fill(frames []int, anglesDeg, sigmaDeg []float64, nominal float64)
 			break
 		}
 	}
-	f.Closure = closure(f.SpanDeg, expected)
+	f.Closure = closure(f.AnglesDeg, frames, expected)
 }
 
-// closure classifies the span against a full turn (see the kinds).
-func closure(spanDeg, stepDeg float64) Closure {
-	span, step := math.Abs(spanDeg), math.Abs(stepDeg)
+// closure classifies the span of the angles (relative to the first frame,
+// unwrapped) against a full turn (see the kinds). A sequence of more than
+// a turn is judged at the frame nearest one full turn after the first.
+func closure(anglesDeg []float64, frames []int, stepDeg float64) Closure {
+	step := math.Abs(stepDeg)
+	span := 0.0
+	if n := len(anglesDeg); n > 0 {
+		span = math.Abs(anglesDeg[n-1] - anglesDeg[0])
+	}
 	c := Closure{Kind: ClosureNone, ExpectedStepDeg: step}
 	switch {
 	case step == 0:
 	case span >= 360-step/2:
 		c.Kind = ClosureRevisit
-		turns := math.Round(span / 360)
-		c.ErrorDeg = span - 360*turns
-		c.Message = fmt.Sprintf("the last frame is %.4f° from %g full turn(s) after the first (it sees the first pose again)", c.ErrorDeg, turns)
+		best := -1
+		for i, a := range anglesDeg {
+			if best < 0 || math.Abs(math.Abs(a-anglesDeg[0])-360) < math.Abs(math.Abs(anglesDeg[best]-anglesDeg[0])-360) {
+				best = i
+			}
+		}
+		c.ErrorDeg = math.Abs(anglesDeg[best]-anglesDeg[0]) - 360
+		if best == len(anglesDeg)-1 {
+			c.Message = fmt.Sprintf("the last frame is %.4f° from a full turn after the first (it sees the first pose again)", c.ErrorDeg)
+		} else {
+			c.Message = fmt.Sprintf("frame %d, the one nearest a full turn after the first, is %.4f° from it (it sees the first pose again); the frames go on for %.1f° in all", frames[best], c.ErrorDeg, span)
+		}
 	case span+step >= 360-step/2:
 		c.Kind = ClosureGap
 		gap := 360 - span

@@ -411,3 +411,25 @@ func TestAngleUncertaintyMatchesScatter(t *testing.T) {
 		t.Errorf("angle scatter/predicted = %.3f, want within 20 %% of 1", r)
 	}
 }
+
+// A sequence of more than one turn (here 2.4 turns of 10° steps, with one
+// frame exactly a full turn after the first) is judged where it first
+// sees its starting pose again: the closure is a revisit with the error at
+// the frame nearest 360°, not the span minus a whole number of turns
+// (which would be 144° here). Angles from the rendered truth, so the
+// error is 0 to the fit's precision.
+func TestClosureOverSeveralTurns(t *testing.T) {
+	var angles []float64
+	for a := 0.0; a <= 864; a += 10 {
+		angles = append(angles, a)
+	}
+	_, rec, _ := truthOf(t, synth.Options{Projection: synth.Orthographic, AnglesDeg: angles, ElevationDeg: 25, ElevationSet: true}, 50, 1)
+	fit, err := FitReconstruction(rec, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := fit.Closure
+	if c.Kind != ClosureRevisit || math.Abs(c.ErrorDeg) > 1e-6 || !strings.Contains(c.Message, "frame 36") {
+		t.Errorf("closure %+v; want a revisit at frame 36 with error 0", c)
+	}
+}
