@@ -154,27 +154,42 @@ func CheckMemory(frames, tracks, observations int, dense bool, cfg Config) error
 		frames, tracks, observations, FormatBytes(need), FormatBytes(limit), why, roundUpSize(need), hint)}
 }
 
+// TrackBytesPerPixel is the tracker's memory per pixel of one frame: the
+// decoded colour frame, its grey, smoothed and float copies and their
+// pyramids for the frames in flight, the detection masks and the
+// refinement's images (measured: a 640×480 run holds about 80 MB before
+// its tracks grow, 260 B per pixel; rounded up).
+const TrackBytesPerPixel = 320
+
 // CheckFramesMemory is the guard's early form, run when the input is opened
-// and before any frame is tracked: it refuses a frame count whose solvers
-// alone (the terms of EstimateMemory that do not depend on the tracks,
-// with the smaller, complete-track path) need more than the limit, so a
-// run that cannot fit fails in a second rather than after the tracking.
-func CheckFramesMemory(frames int, cfg Config) error {
+// and before any frame is tracked: it refuses frames whose tracker buffers
+// (TrackBytesPerPixel per pixel of one frame) and solvers (the terms of
+// EstimateMemory that do not depend on the tracks, with the smaller,
+// complete-track path) need more than the limit, so a run that cannot fit
+// fails in a second rather than after the tracking. width and height are
+// the frame size, 0 when unknown.
+func CheckFramesMemory(frames, width, height int, cfg Config) error {
 	limit, why, ok := MemoryLimit(cfg.MaxMemory)
 	if !ok {
 		return nil
 	}
-	need := EstimateMemory(frames, 0, 0, false, !cfg.Refine.Off)
+	pixels := int64(TrackBytesPerPixel) * int64(width) * int64(height)
+	solvers := EstimateMemory(frames, 0, 0, false, !cfg.Refine.Off)
+	need := pixels + solvers
 	if need <= limit {
 		return nil
 	}
+	if pixels > solvers {
+		return &InputError{fmt.Errorf("pipeline: frames of %d×%d pixels need about %s of memory to track, more than the limit of %s (%s); raise the limit with --max-memory %s if the machine has that much, or scale the frames down",
+			width, height, FormatBytes(need), FormatBytes(limit), why, roundUpSize(need))}
+	}
 	hint := "use fewer frames (--step, --end)"
 	if !cfg.Refine.Off {
-		if rest := EstimateMemory(frames, 0, 0, false, false); rest <= limit {
+		if rest := pixels + EstimateMemory(frames, 0, 0, false, false); rest <= limit {
 			hint += " or turn the refinement off (--refine=false)"
 		}
 	}
-	return &InputError{fmt.Errorf("pipeline: %d frames need at least %s of memory for the solvers alone, before any track is counted, more than the limit of %s (%s); raise the limit with --max-memory %s if the machine has that much, or %s",
+	return &InputError{fmt.Errorf("pipeline: %d frames need at least %s of memory for the tracker and the solvers alone, before any track is counted, more than the limit of %s (%s); raise the limit with --max-memory %s if the machine has that much, or %s",
 		frames, FormatBytes(need), FormatBytes(limit), why, roundUpSize(need), hint)}
 }
 

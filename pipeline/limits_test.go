@@ -1,13 +1,17 @@
 package pipeline
 
 import (
+	"bytes"
 	"context"
+	"encoding/binary"
 	"errors"
 	"fmt"
+	"hash/crc32"
 	"math"
 	"math/rand/v2"
 	"os"
 	"os/exec"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"syscall"
@@ -157,32 +161,62 @@ func TestReconstructMemoryGuard(t *testing.T) {
 	}
 }
 
-// The early guard: a frame count whose solvers alone exceed the limit is
-// refused when the input is opened, before the first frame is tracked (no
-// tracking progress is reported), with the one-line message naming
-// --max-memory; a limit that holds the solvers but not the tracks lets the
-// tracking run and the later guard refuse.
+// The early guard: frames whose tracker buffers and solvers alone exceed
+// the limit are refused when the input is opened, before the first frame
+// is tracked (no tracking progress is reported), with the one-line message
+// naming --max-memory; a limit just above that lets the tracking run.
 func TestRunRefusesFramesBeforeTracking(t *testing.T) {
 	_, dir := renderScene(t, synth.Options{Frames: 6, Width: 160, Height: 120, StepDeg: 2, Seed: 4})
-	solvers := EstimateMemory(6, 0, 0, false, true)
+	early := EstimateMemory(6, 0, 0, false, true) + TrackBytesPerPixel*160*120
 	for _, c := range []struct {
 		limit   int64
 		tracked bool
-	}{{solvers - 1, false}, {solvers + 1, true}} {
+	}{{early - 1, false}, {early + 1, true}} {
 		tracked := false
 		_, err := Run(context.Background(), Config{Input: dir, MaxMemory: c.limit, Progress: func(stage string, done, total int) {
 			tracked = tracked || stage == "track"
 		}})
+		if tracked != c.tracked {
+			t.Errorf("limit %d (early estimate %d): tracking ran %v, want %v; %v", c.limit, early, tracked, c.tracked, err)
+		}
+		if c.tracked {
+			continue
+		}
 		var ie *InputError
 		if !errors.As(err, &ie) || !strings.Contains(err.Error(), "--max-memory") || strings.Contains(err.Error(), "\n") {
 			t.Errorf("limit %d: got %v, want the one-line memory refusal", c.limit, err)
 		}
-		if tracked != c.tracked {
-			t.Errorf("limit %d (solvers need %d): tracking ran %v, want %v; %v", c.limit, solvers, tracked, c.tracked, err)
+	}
+}
+
+// Frames whose headers claim a huge size (a few bytes of PNG can say
+// 60000 × 60000 pixels, a "decompression bomb") are refused from their
+// headers alone, before any is decoded, with a message naming the size;
+// three such files, since all frames must share one size.
+func TestRunRefusesHugeFrames(t *testing.T) {
+	dir := t.TempDir()
+	// PNG signature and an IHDR chunk (ISO/IEC 15948 §11.2.2) for a
+	// 60000 × 60000 8-bit RGB image, with its CRC; no image data.
+	ihdr := []byte{'I', 'H', 'D', 'R', 0, 0, 0xEA, 0x60, 0, 0, 0xEA, 0x60, 8, 2, 0, 0, 0}
+	var b bytes.Buffer
+	b.Write([]byte{0x89, 'P', 'N', 'G', '\r', '\n', 0x1A, '\n', 0, 0, 0, 13})
+	b.Write(ihdr)
+	binary.Write(&b, binary.BigEndian, crc32.ChecksumIEEE(ihdr))
+	for _, n := range []string{"a.png", "b.png", "c.png"} {
+		if err := os.WriteFile(filepath.Join(dir, n), b.Bytes(), 0o644); err != nil {
+			t.Fatal(err)
 		}
-		if !c.tracked && !strings.Contains(err.Error(), "before any track is counted") {
-			t.Errorf("early refusal does not say it comes before tracking: %v", err)
-		}
+	}
+	tracked := false
+	_, err := Run(context.Background(), Config{Input: dir, Progress: func(stage string, done, total int) {
+		tracked = tracked || stage == "track"
+	}})
+	var ie *InputError
+	if !errors.As(err, &ie) || !strings.Contains(err.Error(), "60000×60000") || !strings.Contains(err.Error(), "--max-memory") {
+		t.Errorf("got %v, want the refusal naming the frame size", err)
+	}
+	if tracked {
+		t.Error("tracking started on frames that cannot fit")
 	}
 }
 

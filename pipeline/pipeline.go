@@ -180,11 +180,11 @@ func trackOpen(ctx context.Context, cfg Config) (*track.Set, track.Source, error
 	if err != nil {
 		return nil, nil, &InputError{err}
 	}
-	if err := CheckFramesMemory(src.Len(), cfg); err != nil {
+	w, h := src.Size()
+	if err := CheckFramesMemory(src.Len(), w, h, cfg); err != nil {
 		src.Close()
 		return nil, nil, err
 	}
-	w, h := src.Size()
 	opts := cfg.Track
 	mask, err := buildMask(cfg.MaskFile, cfg.ROI, w, h)
 	if err != nil {
