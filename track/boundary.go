@@ -36,17 +36,46 @@ import "math"
 // track's whole life, so slow drifts that no single frame pair shows
 // accumulate evidence.
 
+// maxVoteHalf is the half-size of the central block of the patch that
+// votes: 3·occlusionSigma, beyond which the Gaussian weight is below
+// 1.2 %.
+const maxVoteHalf = 6
+
+// initVotes makes room for occlusion votes on the central block of the
+// patch (half-size min(half, maxVoteHalf)) and fixes that block's template
+// mean and squared norm for the gain fit.
+func (p *refPatch) initVotes(half int) {
+	vh := min(half, maxVoteHalf)
+	n, vs := 2*vh+1, patchStride(vh)
+	p.voteHalf = vh
+	p.votes = make([]uint16, 2*n*vs)
+	off := half - vh
+	var s, ss float64
+	for j := 0; j < n; j++ {
+		for i := 0; i < n; i++ {
+			v := float64(p.t[(off+j)*p.stride+off+i])
+			s += v
+			ss += v * v
+		}
+	}
+	p.vtm = s / float64(n*n)
+	p.vtn2 = math.Max(0, ss-s*p.vtm)
+}
+
 // occlusionVotes adds this frame's votes (see the comment above) for the
-// patch warped by p.m into im. half is the patch half-size, diff the
-// smallest informative difference in grey levels (RefineOptions.StaticDiff),
-// buf scratch of at least (2·half+1)² floats.
+// central block of the patch warped by p.m into im. half is the patch
+// half-size, diff the smallest informative difference in grey levels
+// (RefineOptions.StaticDiff), buf scratch of at least
+// (2·maxVoteHalf+1)·patchStride(maxVoteHalf) floats. The votes are two
+// planes of (2·p.voteHalf+1) rows of patchStride(p.voteHalf) counts:
+// informative frames, then static votes.
 func (p *refPatch) occlusionVotes(im *floatImage, half int, diff float64, buf []float32) {
-	n := 2*half + 1
-	np := n * n
-	if len(p.votes) < 2*np {
+	vh := p.voteHalf
+	n, vs := 2*vh+1, patchStride(vh)
+	if p.votes == nil || len(buf) < n*vs {
 		return
 	}
-	hf := float64(half)
+	hf := float64(vh)
 	m := &p.m
 	in := func(u, v float64) bool {
 		x := m[0]*u + m[1]*v + m[2]
@@ -54,10 +83,33 @@ func (p *refPatch) occlusionVotes(im *floatImage, half int, diff float64, buf []
 		return x >= 0 && y >= 0 && x < float64(im.w-1) && y < float64(im.h-1)
 	}
 	inside := in(-hf, -hf) && in(hf, -hf) && in(-hf, hf) && in(hf, hf)
-	iw := buf[:np]
+	zx, zy := p.x0-hf, p.y0-hf
+	zin := zx >= 0 && zy >= 0 && zx+float64(vs) < float64(im.w-1) && zy+float64(n) < float64(im.h-1)
+	if inside && zin && haveVectorKernel {
+		// The kernel also reads the padding lanes of each row.
+		if r := float64(vs - 1 - vh); in(r, -hf) && in(r, hf) {
+			occlusionVotesVector(im, p, half, diff, buf)
+			return
+		}
+	}
+	p.occlusionVotesScalar(im, half, diff, buf, inside, zin)
+}
+
+// occlusionVotesScalar is occlusionVotes in plain Go; inside and zin say
+// that the warped and the static block lie inside the image with a pixel
+// to spare (no clamping needed).
+func (p *refPatch) occlusionVotesScalar(im *floatImage, half int, diff float64, buf []float32, inside, zin bool) {
+	vh := p.voteHalf
+	n, vs := 2*vh+1, patchStride(vh)
+	plane := n * vs
+	off := half - vh
+	st := p.stride
+	hf := float64(vh)
+	m := &p.m
+	tk := func(j, i int) float32 { return p.t[(off+j)*st+off+i] }
+	iw := buf[:plane]
 	// The track's hypothesis: the frame through the warp, and the
 	// least-squares gain and bias of I(W(u)) ≈ g·(T(u) − mean T) + mean I.
-	st := p.stride
 	var si, sit float64
 	for j := 0; j < n; j++ {
 		v := float64(j) - hf
@@ -70,24 +122,23 @@ func (p *refPatch) occlusionVotes(im *floatImage, half int, diff float64, buf []
 			} else {
 				val = im.at(X, Y)
 			}
-			iw[j*n+i] = float32(val)
+			iw[j*vs+i] = float32(val)
 			si += val
-			sit += val * (float64(p.t[j*st+i]) - p.tm)
+			sit += val * (float64(tk(j, i)) - p.vtm)
 			X += m[0]
 			Y += m[3]
 		}
 	}
 	g := 0.0
-	if p.tn > 0 {
-		g = sit / (p.tn * p.tn)
+	if p.vtn2 > 0 {
+		g = sit / p.vtn2
 	}
-	mi := si / float64(np)
+	mi := si / float64(n*n)
 	// The static hypothesis: the frame at the reference position, the
 	// same sub-pixel offset for every pixel.
-	x0, y0 := p.x0-hf, p.y0-hf
-	zin := x0 >= 0 && y0 >= 0 && x0+float64(n) < float64(im.w-1) && y0+float64(n) < float64(im.h-1)
-	ix, iy := int(math.Floor(x0)), int(math.Floor(y0))
-	fx, fy := float32(x0-float64(ix)), float32(y0-float64(iy))
+	zx, zy := p.x0-hf, p.y0-hf
+	ix, iy := int(math.Floor(zx)), int(math.Floor(zy))
+	fx, fy := float32(zx-float64(ix)), float32(zy-float64(iy))
 	d := float32(diff)
 	for j := 0; j < n; j++ {
 		for i := 0; i < n; i++ {
@@ -99,46 +150,47 @@ func (p *refPatch) occlusionVotes(im *floatImage, half int, diff float64, buf []
 				bot := q[im.w] + fx*(q[im.w+1]-q[im.w])
 				z = top + fy*(bot-top)
 			} else {
-				z = float32(im.at(p.x0+float64(i-half), p.y0+float64(j-half)))
+				z = float32(im.at(p.x0+float64(i-vh), p.y0+float64(j-vh)))
 			}
-			k := j*n + i
+			k := j*vs + i
 			w := iw[k]
 			if w-z < d && z-w < d {
 				continue // the hypotheses agree here: no evidence
 			}
-			t := p.t[j*st+i]
-			em := float64(w) - mi - g*(float64(t)-p.tm)
+			t := tk(j, i)
+			em := float64(w) - mi - g*(float64(t)-p.vtm)
 			ez := float64(z - t)
-			vk := p.votes[2*k : 2*k+2 : 2*k+2]
-			if vk[0] < math.MaxUint16 {
-				vk[0]++
-				if math.Abs(ez) < math.Abs(em) {
-					vk[1]++
-				}
+			if p.votes[k] < math.MaxUint16 {
+				p.votes[k]++
+			}
+			if math.Abs(ez) < math.Abs(em) && p.votes[plane+k] < math.MaxUint16 {
+				p.votes[plane+k]++
 			}
 		}
 	}
 }
 
 // staticShare is the Gaussian-weighted (σ = occlusionSigma, about the
-// patch centre) share of the patch pixels that voted whose votes were
-// mostly static; ok is false when no pixel voted.
-func (p *refPatch) staticShare(half int) (share float64, ok bool) {
-	n := 2*half + 1
-	if len(p.votes) < 2*n*n {
+// patch centre) share of the voting pixels whose votes were mostly
+// static; ok is false when no pixel voted.
+func (p *refPatch) staticShare() (share float64, ok bool) {
+	vh := p.voteHalf
+	n, vs := 2*vh+1, patchStride(vh)
+	plane := n * vs
+	if p.votes == nil {
 		return 0, false
 	}
 	var all, static float64
 	c := -1 / (2 * occlusionSigma * occlusionSigma)
 	for j := 0; j < n; j++ {
-		v := float64(j - half)
+		v := float64(j - vh)
 		for i := 0; i < n; i++ {
-			k := j*n + i
-			inf, sv := p.votes[2*k], p.votes[2*k+1]
+			k := j*vs + i
+			inf, sv := p.votes[k], p.votes[plane+k]
 			if inf == 0 {
 				continue
 			}
-			u := float64(i - half)
+			u := float64(i - vh)
 			w := math.Exp(c * (u*u + v*v))
 			all += w
 			if 2*int(sv) > int(inf) {

@@ -158,11 +158,104 @@ extern "C" __attribute__((target("avx2,fma"))) void tf_patch_sums(const float *p
         out[q] = s;
     }
 }
+// Two passes of eight lanes: the warped samples (gathers, as in
+// tf_patch_sums) with their sums for the gain and bias, then per pixel the
+// static samples (one bilinear weight pair for the whole patch: plain
+// loads), the comparison and saturating 16-bit vote increments. Lanes past
+// the row's end are masked out of both.
+extern "C" __attribute__((target("avx2,fma"))) void tf_occlusion_votes(const float *pix, int w, const float *t,
+                                                                        int tstride, int half, int stride,
+                                                                        const double *m, double tm, double tn2,
+                                                                        double x0, double y0, double diff, float *iw,
+                                                                        unsigned short *votes) {
+    const int n = 2 * half + 1;
+    const int plane = n * stride;
+    const __m256 lane = _mm256_setr_ps(0, 1, 2, 3, 4, 5, 6, 7);
+    const __m256 a0 = _mm256_set1_ps((float)m[0]), a3 = _mm256_set1_ps((float)m[3]);
+    const __m256 vn = _mm256_set1_ps((float)n);
+    const __m256 vtm = _mm256_set1_ps((float)tm);
+    const __m256i vw = _mm256_set1_epi32(w);
+    __m256 si = _mm256_setzero_ps(), sit = si;
+    for (int j = 0; j < n; j++) {
+        const double v = j - half;
+        const double X0 = -half * m[0] + m[1] * v + m[2];
+        const double Y0 = -half * m[3] + m[4] * v + m[5];
+        const int bx = (int)X0, by = (int)Y0;
+        const __m256 fx0 = _mm256_set1_ps((float)(X0 - bx)), fy0 = _mm256_set1_ps((float)(Y0 - by));
+        const float *base = pix + (long)by * w + bx;
+        for (int i = 0; i < stride; i += 8) {
+            const int k = j * stride + i;
+            const __m256 li = _mm256_add_ps(lane, _mm256_set1_ps((float)i));
+            const __m256 X = _mm256_fmadd_ps(a0, li, fx0);
+            const __m256 Y = _mm256_fmadd_ps(a3, li, fy0);
+            const __m256 Xf = _mm256_floor_ps(X), Yf = _mm256_floor_ps(Y);
+            const __m256 fx = _mm256_sub_ps(X, Xf), fy = _mm256_sub_ps(Y, Yf);
+            const __m256i off = _mm256_add_epi32(_mm256_mullo_epi32(_mm256_cvtps_epi32(Yf), vw), _mm256_cvtps_epi32(Xf));
+            const __m256 q00 = _mm256_i32gather_ps(base, off, 4);
+            const __m256 q01 = _mm256_i32gather_ps(base + 1, off, 4);
+            const __m256 q10 = _mm256_i32gather_ps(base + w, off, 4);
+            const __m256 q11 = _mm256_i32gather_ps(base + w + 1, off, 4);
+            const __m256 top = _mm256_fmadd_ps(fx, _mm256_sub_ps(q01, q00), q00);
+            const __m256 bot = _mm256_fmadd_ps(fx, _mm256_sub_ps(q11, q10), q10);
+            __m256 val = _mm256_fmadd_ps(fy, _mm256_sub_ps(bot, top), top);
+            val = _mm256_and_ps(val, _mm256_cmp_ps(li, vn, _CMP_LT_OQ));
+            _mm256_storeu_ps(iw + k, val);
+            si = _mm256_add_ps(si, val);
+            sit = _mm256_fmadd_ps(val, _mm256_sub_ps(_mm256_loadu_ps(t + j * tstride + i), vtm), sit);
+        }
+    }
+    float r[8];
+    double ssi = 0, ssit = 0;
+    _mm256_storeu_ps(r, si);
+    for (int l = 0; l < 8; l++) ssi += r[l];
+    _mm256_storeu_ps(r, sit);
+    for (int l = 0; l < 8; l++) ssit += r[l];
+    const float g = tn2 > 0 ? (float)(ssit / tn2) : 0.f;
+    const __m256 vg = _mm256_set1_ps(g), vmi = _mm256_set1_ps((float)(ssi / (n * n)));
+    const __m256 vd = _mm256_set1_ps((float)diff);
+    const __m256 sign = _mm256_set1_ps(-0.0f);
+    const double zx = x0 - half, zy = y0 - half;
+    const int ix = (int)zx, iy = (int)zy;
+    const __m256 zfx = _mm256_set1_ps((float)(zx - ix)), zfy = _mm256_set1_ps((float)(zy - iy));
+    const __m128i one = _mm_set1_epi16(1);
+    for (int j = 0; j < n; j++) {
+        const float *r0 = pix + (long)(iy + j) * w + ix;
+        const float *r1 = r0 + w;
+        for (int i = 0; i < stride; i += 8) {
+            const int k = j * stride + i;
+            const __m256 li = _mm256_add_ps(lane, _mm256_set1_ps((float)i));
+            const __m256 q00 = _mm256_loadu_ps(r0 + i), q01 = _mm256_loadu_ps(r0 + i + 1);
+            const __m256 q10 = _mm256_loadu_ps(r1 + i), q11 = _mm256_loadu_ps(r1 + i + 1);
+            const __m256 top = _mm256_fmadd_ps(zfx, _mm256_sub_ps(q01, q00), q00);
+            const __m256 bot = _mm256_fmadd_ps(zfx, _mm256_sub_ps(q11, q10), q10);
+            const __m256 z = _mm256_fmadd_ps(zfy, _mm256_sub_ps(bot, top), top);
+            const __m256 wv = _mm256_loadu_ps(iw + k);
+            const __m256 tk = _mm256_loadu_ps(t + j * tstride + i);
+            const __m256 em = _mm256_andnot_ps(sign, _mm256_sub_ps(_mm256_sub_ps(wv, vmi), _mm256_mul_ps(vg, _mm256_sub_ps(tk, vtm))));
+            const __m256 ez = _mm256_andnot_ps(sign, _mm256_sub_ps(z, tk));
+            const __m256 inf = _mm256_and_ps(_mm256_cmp_ps(_mm256_andnot_ps(sign, _mm256_sub_ps(wv, z)), vd, _CMP_GE_OQ),
+                                             _mm256_cmp_ps(li, vn, _CMP_LT_OQ));
+            const __m256 st = _mm256_and_ps(inf, _mm256_cmp_ps(ez, em, _CMP_LT_OQ));
+            // Lane masks (all ones) to 16-bit 0/1 increments.
+            const __m256i mi = _mm256_castps_si256(inf), ms = _mm256_castps_si256(st);
+            const __m128i pi = _mm_packs_epi32(_mm256_castsi256_si128(mi), _mm256_extracti128_si256(mi, 1));
+            const __m128i ps = _mm_packs_epi32(_mm256_castsi256_si128(ms), _mm256_extracti128_si256(ms, 1));
+            __m128i *vi = (__m128i *)(votes + k), *vs = (__m128i *)(votes + plane + k);
+            _mm_storeu_si128(vi, _mm_adds_epu16(_mm_loadu_si128(vi), _mm_and_si128(pi, one)));
+            _mm_storeu_si128(vs, _mm_adds_epu16(_mm_loadu_si128(vs), _mm_and_si128(ps, one)));
+        }
+    }
+}
 #else
 extern "C" int tf_have_vector_kernel(void) { return 0; }
 
 extern "C" void tf_patch_sums(const float *, int, const float *, const float *, int, int, const double *, double,
                               double *) {
+    std::abort(); // never called: tf_have_vector_kernel is 0
+}
+
+extern "C" void tf_occlusion_votes(const float *, int, const float *, int, int, int, const double *, double,
+                                   double, double, double, double, float *, unsigned short *) {
     std::abort(); // never called: tf_have_vector_kernel is 0
 }
 #endif

@@ -140,3 +140,14 @@ func patchSumsVector(im *floatImage, p *refPatch, m *[6]float64, half int, s *pa
 	s.b = [6]float64{float64(out[0]), float64(out[1]), float64(out[2]), float64(out[3]), float64(out[4]), float64(out[5])}
 	s.si, s.sii, s.sit = float64(out[6]), float64(out[7]), float64(out[8])
 }
+
+// occlusionVotesVector is refPatch.occlusionVotes through the vector
+// kernel tf_occlusion_votes. The caller has checked that both padded
+// patches lie inside the image.
+func occlusionVotesVector(im *floatImage, p *refPatch, half int, diff float64, buf []float32) {
+	vh, off := p.voteHalf, (half-p.voteHalf)*(p.stride+1)
+	C.tf_occlusion_votes((*C.float)(unsafe.Pointer(&im.pix[0])), C.int(im.w), (*C.float)(unsafe.Pointer(&p.t[off])),
+		C.int(p.stride), C.int(vh), C.int(patchStride(vh)), (*C.double)(unsafe.Pointer(&p.m[0])), C.double(p.vtm),
+		C.double(p.vtn2), C.double(p.x0), C.double(p.y0), C.double(diff), (*C.float)(unsafe.Pointer(&buf[0])),
+		(*C.ushort)(unsafe.Pointer(&p.votes[0])))
+}

@@ -53,6 +53,22 @@ int tf_have_vector_kernel(void);
 void tf_patch_sums(const float *pix, int w, const float *t, const float *sd, int half, int stride,
                    const double *m, double tm, double *out);
 
+// tf_occlusion_votes adds one frame's occlusion-boundary votes for the
+// central (2·half+1)² pixels of a patch (see boundary.go,
+// refPatch.occlusionVotes): the track's hypothesis samples pix
+// bilinearly at W(u, v; m) with a least-squares gain and bias (tm and
+// tn2 = ‖T − tm‖² of those pixels of the template t, rows of tstride
+// floats), the static one at (x0 + u, y0 + v); where the two differ by at
+// least diff, votes[k] (informative) is incremented and, when the static
+// hypothesis is the closer, votes[plane + k] too (saturating at 65535),
+// k = row·stride + column, plane = (2·half+1)·stride, stride a multiple of
+// 8. iw is scratch of plane floats. The caller guarantees that both
+// patches, padded rows included, lie inside the image with a pixel to
+// spare, and that t has stride floats from each row's start.
+void tf_occlusion_votes(const float *pix, int w, const float *t, int tstride, int half, int stride,
+                        const double *m, double tm, double tn2, double x0, double y0, double diff, float *iw,
+                        unsigned short *votes);
+
 #ifdef __cplusplus
 }
 #endif

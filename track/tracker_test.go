@@ -398,17 +398,21 @@ func TestPrefetchSame(t *testing.T) {
 func TestWithDefaultsIdempotent(t *testing.T) {
 	o := Options{FBThreshold: -1, RedetectEvery: -1, RedetectBelow: -1, Prefetch: -1, PredictLevels: -1, MotionCheckPx: -1, TrimEnd: -1,
 		Detect: DetectOptions{MinDistance: -1, SubPixHalfWin: -1},
-		Refine: RefineOptions{MinNCC: -1, Sigma: -1}}
+		Refine: RefineOptions{MinNCC: -1, Sigma: -1, StaticShare: -1}}
 	once := o.withDefaults()
 	twice := once.withDefaults()
 	if fmt.Sprintf("%+v", once) != fmt.Sprintf("%+v", twice) {
 		t.Errorf("withDefaults not idempotent:\n%+v\n%+v", once, twice)
 	}
-	if twice.Detect.MinDistance >= 0 || twice.Refine.MinNCC >= 0 || twice.FBThreshold >= 0 || twice.PredictLevels >= 0 || twice.MotionCheckPx >= 0 || twice.TrimEnd >= 0 {
+	if twice.Detect.MinDistance >= 0 || twice.Refine.MinNCC >= 0 || twice.Refine.StaticShare >= 0 || twice.FBThreshold >= 0 || twice.PredictLevels >= 0 || twice.MotionCheckPx >= 0 || twice.TrimEnd >= 0 {
 		t.Errorf("an off value became a default: %+v", twice)
 	}
 	if d := (Options{}).withDefaults(); d.Window != 21 || d.Levels != 3 || d.Detect.MaxCorners != 1000 || d.FBThreshold != 0.5 || d.RedetectEvery != 5 || d.MinLength != 2 ||
-		d.RedetectBelow != 0.85 || d.PredictLevels != 0 || d.PredictCapture != 2 || d.MotionCheckPx != 2 || d.MotionCheckFactor != 3 || d.TrimEnd != 1 || d.Refine.Epsilon != 0.05 {
+		d.RedetectBelow != 0.85 || d.PredictLevels != 0 || d.PredictCapture != 2 || d.MotionCheckPx != 2 || d.MotionCheckFactor != 3 || d.TrimEnd != 1 || d.Refine.Epsilon != 0.2 ||
+		d.Epsilon != 0.05 || d.Refine.HalfPatch != 7 || d.Refine.Sigma != 0.7 || d.Refine.StaticShare != 0.5 || d.Refine.StaticDiff != 2 {
 		t.Errorf("defaults differ from the documented ones: %+v", d)
+	}
+	if d := (Options{Refine: RefineOptions{Off: true}}).withDefaults(); d.Epsilon != 0.01 {
+		t.Errorf("LK Epsilon %g with refinement off; documented 0.01 (OpenCV's default)", d.Epsilon)
 	}
 }

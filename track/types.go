@@ -95,6 +95,10 @@ type Stats struct {
 	// Retried counts points tracked again on the full pyramid after the
 	// predicted, shallower run failed.
 	Retried int
+	// Refined counts the points aligned against their reference patch
+	// (RefineOptions), RefineIters their Gauss–Newton iterations in all:
+	// RefineIters/Refined is the mean per point.
+	Refined, RefineIters int
 	// PredictLevels is the pyramid depth (levels above full resolution)
 	// LK used with prediction for each frame pair (f−1, f), at index f−1;
 	// nil with Options.NoPredict.
