@@ -803,8 +803,52 @@ func incMADSigma(prob *incProblem, u, X []float64) float64 {
 	if len(dev) == 0 {
 		return 0
 	}
-	sort.Float64s(dev)
-	return 1.4826 * dev[len(dev)/2]
+	return 1.4826 * nthSmallest(dev, len(dev)/2)
+}
+
+// nthSmallest returns the element that would be at index k of v sorted
+// ascending, reordering v: Hoare's selection (FIND, CACM 4(7), 1961) with
+// a median-of-three pivot, O(len(v)) expected instead of a sort's
+// O(n log n). Deterministic: no random pivots.
+func nthSmallest(v []float64, k int) float64 {
+	lo, hi := 0, len(v)-1
+	for hi > lo {
+		mid := lo + (hi-lo)/2
+		// Median of three into v[mid].
+		if v[mid] < v[lo] {
+			v[mid], v[lo] = v[lo], v[mid]
+		}
+		if v[hi] < v[lo] {
+			v[hi], v[lo] = v[lo], v[hi]
+		}
+		if v[hi] < v[mid] {
+			v[hi], v[mid] = v[mid], v[hi]
+		}
+		pivot := v[mid]
+		i, j := lo, hi
+		for i <= j {
+			for v[i] < pivot {
+				i++
+			}
+			for v[j] > pivot {
+				j--
+			}
+			if i <= j {
+				v[i], v[j] = v[j], v[i]
+				i++
+				j--
+			}
+		}
+		switch {
+		case k <= j:
+			hi = j
+		case k >= i:
+			lo = i
+		default:
+			return v[k]
+		}
+	}
+	return v[k]
 }
 
 // reject sets weight 0 for observations whose residual exceeds thr and

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"sort"
 	"strings"
 	"testing"
@@ -1065,5 +1066,38 @@ func TestFitAffineIncomplete(t *testing.T) {
 	}
 	if got := math.Sqrt(ss / float64(n)); math.Abs(got-rep.AffineRMS) > 1e-9 {
 		t.Errorf("RMS from the returned fit %.12f, reported %.12f", got, rep.AffineRMS)
+	}
+}
+
+// nthSmallest agrees with sorting (the definition of the k-th order
+// statistic) on random data, data with many ties, sorted and reversed
+// input, and every k of short slices.
+func TestNthSmallest(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	cases := [][]float64{}
+	for _, n := range []int{1, 2, 3, 5, 8, 101, 1000} {
+		r := make([]float64, n)
+		ties := make([]float64, n)
+		asc := make([]float64, n)
+		for i := range r {
+			r[i] = rng.NormFloat64()
+			ties[i] = float64(rng.IntN(4))
+			asc[i] = float64(i)
+		}
+		desc := slices.Clone(asc)
+		slices.Reverse(desc)
+		cases = append(cases, r, ties, asc, desc)
+	}
+	for _, c := range cases {
+		want := slices.Clone(c)
+		slices.Sort(want)
+		for k := range c {
+			if len(c) > 10 && k%37 != 0 && k != len(c)/2 {
+				continue
+			}
+			if got := nthSmallest(slices.Clone(c), k); got != want[k] {
+				t.Fatalf("n %d, k %d: %v, want %v", len(c), k, got, want[k])
+			}
+		}
 	}
 }
