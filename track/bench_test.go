@@ -122,14 +122,31 @@ func (s *benchSeq) path(k int) string { return filepath.Join(s.dir, fmt.Sprintf(
 // per frame pair and end-point errors against the known warp.
 type trackStats struct {
 	perPair float64   // kept points per frame pair (observations in frames 1..n−1 / (n−1))
-	errs    []float64 // end-point errors in pixels (known-warp sequences only)
+	errs    []float64 // end-point errors in pixels over each track's life (known-warp sequences only)
+	// pair are the errors of each observation against where the known
+	// warp takes the track's previous observation: the error of one frame
+	// pair's motion, what the plain loop measures (for the plain loop errs
+	// and pair are the same).
+	pair []float64
 }
 
 func (s trackStats) String() string {
 	if len(s.errs) == 0 {
 		return fmt.Sprintf("%.1f tracks/pair", s.perPair)
 	}
-	return fmt.Sprintf("%.1f tracks/pair, error median %.4f px, p99 %.4f px", s.perPair, percentile(s.errs, 50), percentile(s.errs, 99))
+	return fmt.Sprintf("%.1f tracks/pair, error median %.4f px, p99 %.4f px (per pair %.4f, %.4f)", s.perPair,
+		percentile(s.errs, 50), percentile(s.errs, 99), percentile(s.pair, 50), percentile(s.pair, 99))
+}
+
+// report adds the kept tracks and the errors to a benchmark's metrics.
+func (s trackStats) report(b *testing.B) {
+	b.ReportMetric(s.perPair, "tracks/pair")
+	if len(s.errs) > 0 {
+		b.ReportMetric(percentile(s.errs, 50), "median-px")
+		b.ReportMetric(percentile(s.errs, 99), "p99-px")
+		b.ReportMetric(percentile(s.pair, 50), "pair-median-px")
+		b.ReportMetric(percentile(s.pair, 99), "pair-p99-px")
+	}
 }
 
 // warpErr is the end-point error of (x, y) in frame k for a point seen at
@@ -148,10 +165,12 @@ func (s *benchSeq) setStats(set *Set) trackStats {
 	obs := 0
 	for _, tr := range set.Tracks {
 		a := tr.Obs[0]
-		for _, o := range tr.Obs[1:] {
+		for k, o := range tr.Obs[1:] {
 			obs++
 			if s.affine != nil {
+				p := tr.Obs[k]
 				st.errs = append(st.errs, s.warpErr(a.Frame, a.X, a.Y, o.Frame, o.X, o.Y))
+				st.pair = append(st.pair, s.warpErr(p.Frame, p.X, p.Y, o.Frame, o.X, o.Y))
 			}
 		}
 	}
@@ -210,7 +229,8 @@ func plainLoop(tb testing.TB, s *benchSeq, st *trackStats) {
 				}
 				kept++
 				if s.affine != nil {
-					st.errs = append(st.errs, s.warpErr(f-1, float64(x0), float64(y0), f, float64(x1), float64(y1)))
+					e := s.warpErr(f-1, float64(x0), float64(y0), f, float64(x1), float64(y1))
+					st.errs, st.pair = append(st.errs, e), append(st.pair, e)
 				}
 			}
 		}
@@ -302,12 +322,7 @@ func BenchmarkTrack640x480(b *testing.B) {
 					}
 				}
 				reportSpeed(b, seq.n, cpuTime()-c0)
-				st := seq.setStats(set)
-				b.ReportMetric(st.perPair, "tracks/pair")
-				if len(st.errs) > 0 {
-					b.ReportMetric(percentile(st.errs, 50), "median-px")
-					b.ReportMetric(percentile(st.errs, 99), "p99-px")
-				}
+				seq.setStats(set).report(b)
 			})
 		}
 	}
@@ -332,11 +347,7 @@ func BenchmarkPlainLoop(b *testing.B) {
 			b.StopTimer()
 			var st trackStats
 			plainLoop(b, seq, &st)
-			b.ReportMetric(st.perPair, "tracks/pair")
-			if len(st.errs) > 0 {
-				b.ReportMetric(percentile(st.errs, 50), "median-px")
-				b.ReportMetric(percentile(st.errs, 99), "p99-px")
-			}
+			st.report(b)
 		})
 	}
 }
@@ -374,19 +385,89 @@ func BenchmarkVsPlain(b *testing.B) {
 	b.ReportMetric(float64(seq.n*b.N)/tPlain.Seconds(), "plain-frames/s")
 }
 
+// plainOnOurPoints runs the plain loop's LK (calcOpticalFlowPyrLK, 21 px
+// window, 3 levels, 30 iterations / 0.01 px, OpenCV building the
+// pyramids) from every observation of set in frame f−1 that the set
+// continues into frame f, so that both trackers start from the same
+// points, and returns the end-point errors of both against the known warp
+// of the pair (the plain loop's points that LK reports lost are left out
+// of both).
+func plainOnOurPoints(tb testing.TB, s *benchSeq, set *Set) (plain, ours []float64) {
+	tb.Helper()
+	grays := make([]gocv.Mat, s.n)
+	for k := range grays {
+		bgr := gocv.IMRead(s.path(k), gocv.IMReadColor)
+		grays[k] = gocv.NewMat()
+		gocv.CvtColor(bgr, &grays[k], gocv.ColorBGRToGray)
+		bgr.Close()
+	}
+	next, st, er := gocv.NewMat(), gocv.NewMat(), gocv.NewMat()
+	defer func() {
+		for k := range grays {
+			grays[k].Close()
+		}
+		next.Close()
+		st.Close()
+		er.Close()
+	}()
+	crit := gocv.NewTermCriteria(gocv.Count|gocv.EPS, 30, 0.01)
+	for f := 1; f < s.n; f++ {
+		var from, to []Observation
+		for _, tr := range set.Tracks {
+			for k := 1; k < len(tr.Obs); k++ {
+				if tr.Obs[k].Frame == f && tr.Obs[k-1].Frame == f-1 {
+					from, to = append(from, tr.Obs[k-1]), append(to, tr.Obs[k])
+				}
+			}
+		}
+		if len(from) == 0 {
+			continue
+		}
+		pm := gocv.NewMatWithSize(len(from), 1, gocv.MatTypeCV32FC2)
+		pp, _ := pm.DataPtrFloat32()
+		for i, o := range from {
+			pp[2*i], pp[2*i+1] = float32(o.X), float32(o.Y)
+		}
+		gocv.CalcOpticalFlowPyrLKWithParams(grays[f-1], grays[f], pm, next, &st, &er, image.Pt(21, 21), 3, crit, 0, 1e-4)
+		nx, _ := next.DataPtrFloat32()
+		ok, _ := st.DataPtrUint8()
+		for i, a := range from {
+			if ok[i] == 0 {
+				continue
+			}
+			plain = append(plain, s.warpErr(f-1, a.X, a.Y, f, float64(nx[2*i]), float64(nx[2*i+1])))
+			ours = append(ours, s.warpErr(f-1, a.X, a.Y, f, to[i].X, to[i].Y))
+		}
+		pm.Close()
+	}
+	return plain, ours
+}
+
 // TestBenchParity checks the non-speed half of the benchmark goal on the
 // known-warp benchmark sequence (opencv-doc graf1.png, benchmark warp):
 // the speed-ups must not cost tracks or accuracy. Run with default options
 // is compared with a reference run without them (NoPredict: all 3 levels
-// for every point; refinement Epsilon 0.005 px, the earlier default):
-// tracks per frame pair within 1 % (issue 3's bound), and the end-point
-// errors against the known warp, measured over each track's whole life,
-// no worse than the reference's by more than 0.002 px at the median and
-// 0.02 px at the 99th percentile (a tolerance for the slightly different
-// point sets; the medians are about 0.03 px). Against the plain loop
-// (BenchmarkPlainLoop's, errors over a single pair only: it has no longer
-// tracks) it must keep at least 99 % as many points per pair; its errors
-// are logged beside ours.
+// and the full window for every point; LK Epsilon 0.01 px, refinement
+// Epsilon 0.005 px, the earlier defaults): tracks per frame pair within
+// 1 % (issue 3's bound), and the end-point errors against the known warp,
+// measured over each track's whole life, no worse than the reference's by
+// more than 0.002 px at the median and 0.02 px at the 99th percentile (a
+// tolerance for the slightly different point sets; the medians are about
+// 0.03 px).
+//
+// Against the plain loop (BenchmarkPlainLoop's): at least 99 % as many
+// points per pair; and, on the same points (plainOnOurPoints: the plain
+// loop's LK started from our observations in frame f−1), our per-pair
+// median error no worse than its (+0.002 px). Measured when written: per
+// pair, ours 0.0228 px median and 0.165 px at the 99th percentile, the
+// plain loop's 0.0264 and 0.112 on the same points; over the tracks'
+// lives ours stays at 0.032 and 0.23 px (drift-free), where plain
+// frame-to-frame LK chained over the same lives (Refine.Off) reaches
+// 0.160 and 1.04 px. The 99th percentile per pair is the one figure where
+// the plain loop is ahead (the 15×15 affine refinement's noise on a few
+// per cent of the tracks, see RefineOptions.HalfPatch); it is logged.
+// Every track's life also keeps issue 3's accuracy bounds for known
+// warps of real photographs (median ≤ 0.05 px, 99th percentile ≤ 0.3 px).
 func TestBenchParity(t *testing.T) {
 	if testing.Short() {
 		t.Skip("makes the 20-frame benchmark sequence; skipped in -short")
@@ -405,12 +486,16 @@ func TestBenchParity(t *testing.T) {
 		return seq.setStats(set), set
 	}
 	ours, set := run(Options{})
-	ref, _ := run(Options{NoPredict: true, Refine: RefineOptions{Epsilon: 0.005}})
+	ref, _ := run(Options{NoPredict: true, Epsilon: 0.01, Refine: RefineOptions{Epsilon: 0.005}})
 	var plain trackStats
 	plainLoop(t, seq, &plain)
-	t.Logf("default:    %v; ended %v, prediction depths %v", ours, set.Stats.Ended, set.Stats.PredictLevels)
+	po, oo := plainOnOurPoints(t, seq, set)
+	t.Logf("default:    %v; ended %v, prediction depths %v, %.2f refinement iterations per point", ours, set.Stats.Ended, set.Stats.PredictLevels,
+		float64(set.Stats.RefineIters)/float64(set.Stats.Refined))
 	t.Logf("reference:  %v", ref)
 	t.Logf("plain loop: %v", plain)
+	t.Logf("same points (%d): per pair, ours median %.4f px, p99 %.4f px; plain loop's LK %.4f, %.4f", len(po),
+		percentile(oo, 50), percentile(oo, 99), percentile(po, 50), percentile(po, 99))
 	if math.Abs(ours.perPair-ref.perPair) > 0.01*ref.perPair {
 		t.Errorf("%.1f tracks per pair, reference %.1f: more than 1 %% apart", ours.perPair, ref.perPair)
 	}
@@ -419,7 +504,16 @@ func TestBenchParity(t *testing.T) {
 	if om > rm+0.002 || o99 > r99+0.02 {
 		t.Errorf("error median %.4f px, p99 %.4f px; the reference's %.4f and %.4f (tolerance +0.002, +0.02 px)", om, o99, rm, r99)
 	}
+	if om > 0.05 || o99 > 0.3 {
+		t.Errorf("error median %.4f px, p99 %.4f px over the tracks' lives; issue 3 asks ≤ 0.05 and ≤ 0.3", om, o99)
+	}
 	if ours.perPair < 0.99*plain.perPair {
 		t.Errorf("%.1f tracks per pair, fewer than 99 %% of the plain loop's %.1f", ours.perPair, plain.perPair)
+	}
+	if len(po) < 1000 {
+		t.Fatalf("only %d points shared with the plain loop's LK", len(po))
+	}
+	if m, pm := percentile(oo, 50), percentile(po, 50); m > pm+0.002 {
+		t.Errorf("same points, per pair: our median %.4f px, the plain loop's %.4f (tolerance +0.002)", m, pm)
 	}
 }

@@ -408,7 +408,7 @@ func TestWithDefaultsIdempotent(t *testing.T) {
 		t.Errorf("an off value became a default: %+v", twice)
 	}
 	if d := (Options{}).withDefaults(); d.Window != 21 || d.Levels != 3 || d.Detect.MaxCorners != 1000 || d.FBThreshold != 0.5 || d.RedetectEvery != 5 || d.MinLength != 2 ||
-		d.RedetectBelow != 0.85 || d.PredictLevels != 0 || d.PredictCapture != 2 || d.MotionCheckPx != 2 || d.MotionCheckFactor != 3 || d.TrimEnd != 1 || d.Refine.Epsilon != 0.2 ||
+		d.RedetectBelow != 0.85 || d.PredictLevels != 0 || d.PredictCapture != 2 || d.MotionCheckPx != 2 || d.MotionCheckFactor != 3 || d.TrimEnd != 1 || d.Refine.Epsilon != 0.3 ||
 		d.Epsilon != 0.05 || d.Refine.HalfPatch != 7 || d.Refine.Sigma != 0.7 || d.Refine.StaticShare != 0.5 || d.Refine.StaticDiff != 2 {
 		t.Errorf("defaults differ from the documented ones: %+v", d)
 	}
