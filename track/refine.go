@@ -81,17 +81,17 @@ type RefineOptions struct {
 	// outline, or a T-junction of the outline with the backdrop. Default
 	// 0.5, a majority. Measured on the synthetic turntable with a static
 	// backdrop (TestBackground's scene): the share of kept tracks on the
-	// part rose from 95.1 % to 98.5 % at the cost of 2 of the 599 tracks on
-	// the part (0.45: 98.8 % at a cost of 3; 0.55: 97.9 % at no cost); with
-	// noise σ = 3 from 94.6 % to 98.3 %, with noise σ = 2 and blur σ = 0.8
-	// from 93.5 % to 96.9 %. Negative turns the check off.
+	// part rose from 95.4 % to 98.5 % at the cost of 2 of the 600 tracks on
+	// the part (0.45: 98.8 % at a cost of 3; 0.55: 98.2 % at no cost); with
+	// noise σ = 3 from 94.6 % to 98.2 %, with noise σ = 2 and blur σ = 0.8
+	// from 94.1 % to 97.4 %. Negative turns the check off.
 	StaticShare float64
 	// StaticDiff is the smallest difference, in grey levels (0..255),
 	// between what zero motion and the track's warp predict for a pixel
 	// for the pixel to vote (a flat pixel looks the same under both and
 	// says nothing). Default 2: about 4σ of the difference of two frames
 	// with noise σ = 1 grey level after the default smoothing (Sigma 0.7);
-	// on TestBackground's scene 2, 3 and 4 gave 98.5, 98.4 and 98.4 % of
+	// on TestBackground's scene 2, 3 and 4 gave 98.5, 98.5 and 98.7 % of
 	// the kept tracks on the part (measured).
 	StaticDiff float64
 }

@@ -90,7 +90,8 @@ type Options struct {
 	// with the same tracks and end-point errors on the benchmark (933.2
 	// against 933.0 tracks per pair, median 0.0324 against 0.0323 px).
 	// The border margin (half of Window) and the refinement patch do not
-	// depend on it.
+	// depend on it. With refinement off LK sets the positions, and the
+	// default is Window.
 	PredictWindow int
 	// PredictCapture is the residual motion in pixels that LK is trusted
 	// to capture at full resolution when PredictLevels is automatic.
@@ -250,6 +251,9 @@ func (o Options) withDefaults() Options {
 	}
 	if o.PredictWindow == 0 {
 		o.PredictWindow = defaultPredictWindow
+		if o.Refine.Off {
+			o.PredictWindow = o.Window
+		}
 	}
 	if o.PredictCapture == 0 {
 		o.PredictCapture = defaultPredictCapture

@@ -409,10 +409,10 @@ func TestWithDefaultsIdempotent(t *testing.T) {
 	}
 	if d := (Options{}).withDefaults(); d.Window != 21 || d.Levels != 3 || d.Detect.MaxCorners != 1000 || d.FBThreshold != 0.5 || d.RedetectEvery != 5 || d.MinLength != 2 ||
 		d.RedetectBelow != 0.85 || d.PredictLevels != 0 || d.PredictCapture != 2 || d.MotionCheckPx != 2 || d.MotionCheckFactor != 3 || d.TrimEnd != 1 || d.Refine.Epsilon != 0.3 ||
-		d.Epsilon != 0.05 || d.Refine.HalfPatch != 7 || d.Refine.Sigma != 0.7 || d.Refine.StaticShare != 0.5 || d.Refine.StaticDiff != 2 {
+		d.Epsilon != 0.05 || d.Refine.HalfPatch != 7 || d.Refine.Sigma != 0.7 || d.Refine.StaticShare != 0.5 || d.Refine.StaticDiff != 2 || d.PredictWindow != 17 {
 		t.Errorf("defaults differ from the documented ones: %+v", d)
 	}
-	if d := (Options{Refine: RefineOptions{Off: true}}).withDefaults(); d.Epsilon != 0.01 {
-		t.Errorf("LK Epsilon %g with refinement off; documented 0.01 (OpenCV's default)", d.Epsilon)
+	if d := (Options{Refine: RefineOptions{Off: true}}).withDefaults(); d.Epsilon != 0.01 || d.PredictWindow != d.Window {
+		t.Errorf("LK Epsilon %g, PredictWindow %d with refinement off; documented 0.01 (OpenCV's default) and Window", d.Epsilon, d.PredictWindow)
 	}
 }
