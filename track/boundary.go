@@ -20,13 +20,15 @@ import "math"
 // tracker must reject; T-junctions at occluding contours as a source of
 // false corners are common knowledge of the trade.
 //
-// The check is a two-layer motion segmentation of the reference patch in
+// The check is a two-layer motion segmentation of the reference patch
+// (its central block of half-size maxVoteHalf, where the weights below
+// are not negligible) in
 // the sense of layered motion (Wang & Adelson, "Representing moving images
 // with layers", IEEE Trans. Image Processing 3(5), 1994): two motion
 // hypotheses, the static layer (zero motion: the current frame at the
 // track's reference position) and the track's own motion (the current
 // frame through the refined affine warp, with a least-squares gain and
-// bias), and each pixel is assigned to the hypothesis that explains it
+// bias fitted over the block), and each pixel is assigned to the hypothesis that explains it
 // better, here by a vote per frame. Pixels where the two hypotheses
 // predict nearly the same value (flat regions, or too little motion yet)
 // carry no evidence and do not vote. The track's point is the patch

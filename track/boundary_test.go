@@ -39,9 +39,10 @@ func twoLayerFrames(w, h, n, edge, v int) []floatImage {
 // TestOcclusionVotes checks the occlusion-boundary votes on the invented
 // two-layer sequence of twoLayerFrames (static left of x = 100, moving
 // right 1 px per frame from it), with the tracker's default patch (half
-// 7) and StaticDiff (3 grey levels): the warp of each patch is set to what
-// a tracker would follow (the moving layer's motion, or none), as the
-// refinement leaves it. Expected by construction:
+// 7, votes on its central 13×13 block) and StaticDiff (2 grey levels):
+// the warp of each patch is set to what a tracker would follow (the moving
+// layer's motion, or none), as the refinement leaves it. Expected by
+// construction:
 //   - a patch centred 4 px left of the edge (on the static layer) whose
 //     warp follows the moving layer, like a backdrop corner dragged by the
 //     part next to it, has a static share above 0.5 (most of its centre
@@ -92,8 +93,9 @@ func TestOcclusionVotes(t *testing.T) {
 
 // TestOcclusionKernelMatchesGo: the AVX2 vote kernel (cvshim.cpp) must
 // cast the same votes as the plain Go loop, on a real photograph
-// (opencv-doc graf1.png) for 1000 random patches (half-sizes 2..10) under
-// random affine warps near identity and random reference positions, over
+// (opencv-doc graf1.png) for 1000 random patches (half-sizes 2..10, vote
+// blocks of half-size 2..6) under random affine warps near identity and
+// random reference positions, over
 // three frames (the photograph itself, so that the hypotheses differ only
 // by the warp). A vote can differ only where a comparison is within
 // float32 rounding of its threshold (the kernel sums the gain in float32
