@@ -272,25 +272,31 @@ var benchCases = []struct {
 // observation: the plain loop's measure, since it has no longer tracks).
 //
 // Measured on the 2-core development machine (AMD EPYC, OpenCV 4.6.0),
-// shared with other work (load average 1–2.5 during these rounds). The
+// shared with other work (load average 2–3 during these rounds). The
 // tracker before and after the occlusion-boundary and speed work of
 // issue 3's last round, each round running both builds back to back
-// (-benchtime 10x, 3 rounds, medians; frames/s swing by ±15 % between
-// rounds, CPU time per frame less):
+// (-benchtime 10x, 3 rounds, medians; the plain loop, the same code in
+// both, pooled over the 6 runs: warp 40.8 frames/s and 38.5 CPU-ms per
+// frame, turntable 49.8 and 30.7; frames/s swing by ±15 % between rounds,
+// CPU time per frame less):
 //
 //	                                before          after
-//	warp/default frames/s           66.3            90.3   (plain 47.6 / 48.5: 1.39× → 1.86×)
-//	warp/default cpu-ms/frame       26.1            19.6   (plain 33.3 / 32.6)
-//	turntable/default frames/s      75.8            100.8  (plain 60.6 / 58.8: 1.25× → 1.71×)
-//	turntable/default cpu-ms/frame  23.1            17.5   (plain 24.9 / 25.8)
+//	warp/default frames/s           58.9 (1.44×)    73.6 (1.80× the plain loop)
+//	warp/default cpu-ms/frame       28.6 (1.35×)    22.7 (1.70×)
+//	turntable/default frames/s      59.7 (1.20×)    83.1 (1.67×)
+//	turntable/default cpu-ms/frame  26.6 (1.15×)    20.6 (1.49×)
 //	warp/default tracks/pair        933.0           933.2  (plain 857.5)
-//	warp/default life median/p99    0.0321/0.2268   0.0326/0.2265 px
+//	warp/default life median/p99    0.0321/0.2268   0.0325/0.2265 px
 //	warp/default pair median/p99    0.0227/0.1700   0.0233/0.1620 px (plain 0.0249/0.1197)
 //	warp/lk life median/p99         0.160/1.044     0.160/1.044 px (LK sets the positions: the full window)
 //	warp/lk pair median/p99         0.0264/0.113    0.0264/0.113 px
 //
-// (before, with the pair errors measured by the same code on that build's
-// tracks.) Where the time went (after, turntable, CPU per frame): PNG
+// (before: the pair errors measured by the same code on that build's
+// tracks.) On a quieter machine (load about 1) the build just before the
+// last change (which also ran the first pair on the 17 px window) reached
+// 86.6 frames/s on warp against the plain loop's 43.3 (2.0×) and 96.9 on
+// the turntable against 56.0 (1.73×); BenchmarkVsPlain (interleaved)
+// 1.87×. Where the time went (after, turntable, CPU per frame): PNG
 // decoding 6.0 ms (both loops), LK forward and backward 3.8 ms,
 // refinement 2.2 ms (1.8 iterations per point), corner detection every 5
 // frames 1.3 ms, occlusion votes 0.7 ms, grey, pyramid, smoothing 0.7 ms.
