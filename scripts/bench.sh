@@ -74,15 +74,17 @@ tracking() {
 		if (name ~ /^PlainLoop\//) { seq = name; sub(/^PlainLoop\//, "", seq); plain[seq] = get($0, "frames/s") }
 	}
 	END {
-		printf "%-32s %9s %9s %10s %11s %10s %9s\n", "case", "frames/s", "x plain", "cpu-ms/fr", "tracks/pair", "median-px", "p99-px"
+		printf "%-32s %9s %8s %10s %11s %9s %9s %9s %9s\n", "case", "frames/s", "x plain", "cpu-ms/fr", "tracks/pair", "life-med", "life-p99", "pair-med", "pair-p99"
 		for (j = 1; j <= n; j++) {
 			name = rows[j]; l = line[name]
 			seq = name; sub(/^Track640x480\//, "", seq); sub(/^PlainLoop\//, "", seq); sub(/\/.*/, "", seq)
 			fps = get(l, "frames/s"); ratio = (plain[seq] > 0) ? sprintf("%.2f", fps / plain[seq]) : "-"
-			med = get(l, "median-px"); p99 = get(l, "p99-px")
-			printf "%-32s %9.1f %9s %10.2f %11.1f %10s %9s\n", name, fps, ratio, get(l, "cpu-ms/frame"), get(l, "tracks/pair"),
-				(med == "" ? "-" : sprintf("%.4f", med)), (p99 == "" ? "-" : sprintf("%.4f", p99))
+			med = get(l, "median-px"); p99 = get(l, "p99-px"); pm = get(l, "pair-median-px"); pp = get(l, "pair-p99-px")
+			printf "%-32s %9.1f %8s %10.2f %11.1f %9s %9s %9s %9s\n", name, fps, ratio, get(l, "cpu-ms/frame"), get(l, "tracks/pair"),
+				(med == "" ? "-" : sprintf("%.4f", med)), (p99 == "" ? "-" : sprintf("%.4f", p99)),
+				(pm == "" ? "-" : sprintf("%.4f", pm)), (pp == "" ? "-" : sprintf("%.4f", pp))
 		}
+		print "life: end-point error against the known warp over the life of each track (drift included); pair: the error of the motion of one frame pair (what the plain loop can be held to); px"
 	}'
 	echo
 }

@@ -40,6 +40,7 @@ type trackFlags struct {
 	redetect             int
 	minLength            int
 	noRefine, noReject   bool
+	noOcclusion          bool
 	mask, roi            string
 }
 
@@ -60,6 +61,7 @@ func (f *trackFlags) flags() []cli.Flag {
 		&cli.IntFlag{Name: "min-length", Category: "tracking", Usage: "drop tracks with fewer observations", Value: d.MinLength, Destination: &f.minLength},
 		&cli.BoolFlag{Name: "no-refine", Category: "tracking", Usage: "skip the drift-free refinement of positions against each track's first appearance", Destination: &f.noRefine},
 		&cli.BoolFlag{Name: "no-reject", Category: "tracking", Usage: "keep static-background and outlier tracks", Destination: &f.noReject},
+		&cli.BoolFlag{Name: "no-occlusion-check", Category: "tracking", Usage: "keep tracks whose point is background dragged along by the part's outline (the two-layer motion test that ends them as occlusion-boundary)", Destination: &f.noOcclusion},
 		&cli.StringFlag{Name: "mask", Category: "tracking", Usage: "image of the frame size: corners are detected only where it is bright", Destination: &f.mask},
 		&cli.StringFlag{Name: "roi", Category: "tracking", Usage: "detect corners only inside the rectangle X,Y,W,H (px)", Destination: &f.roi},
 	}
@@ -88,6 +90,9 @@ func (f *trackFlags) options() (track.Options, error) {
 	o.MinLength = f.minLength
 	o.Refine.Off = f.noRefine
 	o.Reject.Off = f.noReject
+	if f.noOcclusion {
+		o.Refine.StaticShare = -1
+	}
 	if err := o.Validate(); err != nil {
 		return o, &usageError{err.Error()}
 	}
