@@ -140,31 +140,13 @@ func (w *incCGWork) build(pr *incProblem, u, X []float64) float64 {
 				}
 			}
 			for k := k0; k < k1; k++ {
-				wt := pr.wt[k]
 				zk := w.z[2*r*k : 2*r*k+2*r]
-				if wt == 0 {
+				wt, _, _, ok := pr.obsBlock(k, d, u, x, xt, s.l, g, zk)
+				if !ok {
 					clear(zk)
 					continue
 				}
 				f := pr.frame[k]
-				mx := u[f*fs : f*fs+cs]
-				my := u[f*fs+cs : f*fs+2*cs]
-				ex, ey := pr.obsX[k]-mx[r], pr.obsY[k]-my[r]
-				for i := 0; i < r; i++ {
-					ex -= mx[i] * x[i]
-					ey -= my[i] * x[i]
-				}
-				gf := g[f*fs : f*fs+fs]
-				for i := 0; i < cs; i++ {
-					gf[i] -= wt * ex * xt[i]
-					gf[cs+i] -= wt * ey * xt[i]
-				}
-				for i := 0; i < r; i++ {
-					zk[i] = wt * mx[i]
-					zk[r+i] = wt * my[i]
-				}
-				incFwdN(s.l, r, zk[:r])
-				incFwdN(s.l, r, zk[r:])
 				// Diagonal block of frame f: Π_jj ⊗ x̃x̃ᵀ with
 				// Π_jj = ω I₂ − [z_x z_y]ᵀ[z_x z_y].
 				var pxx, pxy, pyy float64

@@ -560,6 +560,40 @@ func (w *incVPWork) build(pr *incProblem, u, X []float64) float64 {
 	return cost
 }
 
+// obsBlock is one observation k of a point at x (x̃ = (x, 1) in xt, L
+// its Cholesky factor l) at the cameras u: it returns the weight ω and the
+// residual (ex, ey), subtracts the gradient ω·e·x̃ from frame k's block
+// of g and writes z = L⁻¹·ω·(m_x, m_y) into z[:2r] (a column of
+// Z = L⁻¹(ΩM)ᵀ). ok is false, and nothing is written, for an observation
+// of weight 0.
+func (pr *incProblem) obsBlock(k int, d incDims, u, x, xt, l, g, z []float64) (w, ex, ey float64, ok bool) {
+	r, cs, fs := d.r, d.cs, d.fs
+	w = pr.wt[k]
+	if w == 0 {
+		return 0, 0, 0, false
+	}
+	f := pr.frame[k]
+	mx := u[f*fs : f*fs+cs]
+	my := u[f*fs+cs : f*fs+2*cs]
+	ex, ey = pr.obsX[k]-mx[r], pr.obsY[k]-my[r]
+	for i := 0; i < r; i++ {
+		ex -= mx[i] * x[i]
+		ey -= my[i] * x[i]
+	}
+	gf := g[f*fs : f*fs+fs]
+	for i := 0; i < cs; i++ {
+		gf[i] -= w * ex * xt[i]
+		gf[cs+i] -= w * ey * xt[i]
+	}
+	for i := 0; i < r; i++ {
+		z[i] = w * mx[i]
+		z[r+i] = w * my[i]
+	}
+	incFwdN(l, r, z[:r])
+	incFwdN(l, r, z[r:2*r])
+	return w, ex, ey, true
+}
+
 // buildRange adds the contributions of points lo…hi−1 (see the file
 // comment): per point the Kronecker product Π ⊗ x̃x̃ᵀ with
 // Π = Ω − ΩM C⁻¹MᵀΩ = Ω − ZᵀZ, Z = L⁻¹(ΩM)ᵀ, C = LLᵀ.
@@ -581,31 +615,12 @@ func (pr *incProblem) buildRange(lo, hi int, d incDims, u, X, H, g []float64, s 
 		xt[r] = 1
 		for j := 0; j < k1-k0; j++ {
 			k := k0 + j
-			w := pr.wt[k]
 			zj := s.z[zs*j : zs*j+zs]
-			if w == 0 {
+			w, ex, ey, ok := pr.obsBlock(k, d, u, x, xt, s.l, g, zj)
+			if !ok {
 				clear(zj)
 				continue
 			}
-			f := pr.frame[k]
-			mx := u[f*fs : f*fs+cs]
-			my := u[f*fs+cs : f*fs+2*cs]
-			ex, ey := pr.obsX[k]-mx[r], pr.obsY[k]-my[r]
-			for i := 0; i < r; i++ {
-				ex -= mx[i] * x[i]
-				ey -= my[i] * x[i]
-			}
-			gf := g[f*fs : f*fs+fs]
-			for i := 0; i < cs; i++ {
-				gf[i] -= w * ex * xt[i]
-				gf[cs+i] -= w * ey * xt[i]
-			}
-			for i := 0; i < r; i++ {
-				zj[i] = w * mx[i]
-				zj[r+i] = w * my[i]
-			}
-			incFwdN(s.l, r, zj[:r])
-			incFwdN(s.l, r, zj[r:2*r])
 			zj[2*r], zj[2*r+1] = w*ex, w*ey
 		}
 		for i := 0; i < cs; i++ {
