@@ -152,12 +152,7 @@ func (l *linearizer) linearizeCG(m model, X [][3]float64, lambda float64, sys *s
 				f := int(p.cam[o0+t])
 				wo := w.wbuf[t*nb : (t+1)*nb]
 				var y [maxCam * 3]float64
-				for a := 0; a < nc; a++ {
-					x0, x1, x2 := wo[3*a], wo[3*a+1], wo[3*a+2]
-					y[3*a] = x0*vi[0] + x1*vi[3] + x2*vi[6]
-					y[3*a+1] = x0*vi[1] + x1*vi[4] + x2*vi[7]
-					y[3*a+2] = x0*vi[2] + x1*vi[5] + x2*vi[8]
-				}
+				timesVinv(y[:nb], wo, &vi)
 				base := ng + f*nc
 				sb := w.sff[f*nc*nc : (f+1)*nc*nc]
 				for a := 0; a < nc; a++ {
@@ -167,11 +162,10 @@ func (l *linearizer) linearizeCG(m model, X [][3]float64, lambda float64, sys *s
 					}
 				}
 			}
+			var Yg [maxShared * 3]float64
+			timesVinv(Yg[:3*ng], Wg[:3*ng], &vi)
 			for a := 0; a < ng; a++ {
-				x0, x1, x2 := Wg[3*a], Wg[3*a+1], Wg[3*a+2]
-				y0 := x0*vi[0] + x1*vi[3] + x2*vi[6]
-				y1 := x0*vi[1] + x1*vi[4] + x2*vi[7]
-				y2 := x0*vi[2] + x1*vi[5] + x2*vi[8]
+				y0, y1, y2 := Yg[3*a], Yg[3*a+1], Yg[3*a+2]
 				w.rhs[a] -= y0*eps[0] + y1*eps[1] + y2*eps[2]
 				for b := 0; b < ng; b++ {
 					w.sgg[a*ng+b] += y0*Wg[3*b] + y1*Wg[3*b+1] + y2*Wg[3*b+2]

@@ -271,6 +271,17 @@ func mul33(a, b [9]float64) (c [9]float64) {
 	return c
 }
 
+// timesVinv sets y = x·V⁻¹ for each 3-row block of x (the blocks of
+// Y = W V⁻¹), vi the row-major V⁻¹.
+func timesVinv(y, x []float64, vi *[9]float64) {
+	for a := 0; a+2 < len(x); a += 3 {
+		x0, x1, x2 := x[a], x[a+1], x[a+2]
+		y[a] = x0*vi[0] + x1*vi[3] + x2*vi[6]
+		y[a+1] = x0*vi[1] + x1*vi[4] + x2*vi[7]
+		y[a+2] = x0*vi[2] + x1*vi[5] + x2*vi[8]
+	}
+}
+
 func mul33v(a [9]float64, v [3]float64) [3]float64 {
 	return [3]float64{a[0]*v[0] + a[1]*v[1] + a[2]*v[2], a[3]*v[0] + a[4]*v[1] + a[5]*v[2], a[6]*v[0] + a[7]*v[1] + a[8]*v[2]}
 }
@@ -338,22 +349,9 @@ func (l *linearizer) linearize(m model, X [][3]float64, lambda float64, sys *sys
 			}
 			sys.pd[j] = pointData{vi: vi, eps: eps, d: D}
 			o0 := p.start[j]
-			for t := 0; t < k; t++ {
-				wo, y := w.wbuf[t*nb:(t+1)*nb], w.ybuf[t*nb:(t+1)*nb]
-				for a := 0; a < nc; a++ {
-					x0, x1, x2 := wo[3*a], wo[3*a+1], wo[3*a+2]
-					y[3*a] = x0*vi[0] + x1*vi[3] + x2*vi[6]
-					y[3*a+1] = x0*vi[1] + x1*vi[4] + x2*vi[7]
-					y[3*a+2] = x0*vi[2] + x1*vi[5] + x2*vi[8]
-				}
-			}
+			timesVinv(w.ybuf[:k*nb], w.wbuf[:k*nb], &vi)
 			var Yg [maxShared * 3]float64
-			for a := 0; a < ng; a++ {
-				x0, x1, x2 := Wg[3*a], Wg[3*a+1], Wg[3*a+2]
-				Yg[3*a] = x0*vi[0] + x1*vi[3] + x2*vi[6]
-				Yg[3*a+1] = x0*vi[1] + x1*vi[4] + x2*vi[7]
-				Yg[3*a+2] = x0*vi[2] + x1*vi[5] + x2*vi[8]
-			}
+			timesVinv(Yg[:3*ng], Wg[:3*ng], &vi)
 			// S −= Y Wᵀ over the pairs of views (upper triangle), and
 			// rhs −= Y ε_p. Views of consecutive cameras form runs whose
 			// blocks are contiguous in a row of S; with Wᵀ stored as three
