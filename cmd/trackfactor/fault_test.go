@@ -8,14 +8,12 @@ package main
 // the input exactly as they were.
 
 import (
-	"bufio"
 	"bytes"
 	"context"
 	"errors"
 	"fmt"
 	"image"
 	"image/jpeg"
-	"io"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -500,44 +498,11 @@ func TestFaultSIGTERM(t *testing.T) {
 	if testing.Short() {
 		t.Skip("builds and runs the program; in the full suite only")
 	}
-	bin := buildBinary(t)
 	capDir := filepath.Join(t.TempDir(), "cap")
 	renderLong(t, capDir)
 	out := outWithBystander(t)
 	outBefore := snapshot(t, out)
-	cmd := exec.Command(bin, "run", "-o", out, capDir)
-	stderr, err := cmd.StderrPipe()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	var rest bytes.Buffer
-	sc := bufio.NewScanner(stderr)
-	signalled := false
-	for sc.Scan() {
-		line := sc.Text()
-		rest.WriteString(line + "\n")
-		if !signalled && strings.HasPrefix(line, "track") {
-			if err := cmd.Process.Signal(syscall.SIGTERM); err != nil {
-				t.Fatal(err)
-			}
-			signalled = true
-		}
-	}
-	io.Copy(&rest, stderr)
-	err = cmd.Wait()
-	if !signalled {
-		t.Fatalf("the program ended before tracking was reported: %v\n%s", err, rest.String())
-	}
-	var ee *exec.ExitError
-	if !errors.As(err, &ee) || ee.ExitCode() != exitInterrupted {
-		t.Fatalf("exit %v, want %d\n%s", err, exitInterrupted, rest.String())
-	}
-	if !strings.Contains(rest.String(), "interrupted") {
-		t.Errorf("stderr does not say it was interrupted:\n%s", rest.String())
-	}
+	signalWhileTracking(t, syscall.SIGTERM, out, capDir)
 	if got := snapshot(t, out); !sameSnapshot(outBefore, got) {
 		t.Errorf("the output folder changed after SIGTERM: %v", keys(got))
 	}
