@@ -95,6 +95,26 @@ extern "C" int tf_have_vector_kernel(void) {
     return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma");
 }
 
+// warped_sample samples the image bilinearly at eight warped points of a
+// patch row: lanes li (column offsets) of the row whose first point is
+// base + (fx0, fy0), stepping (a0, a3) per column; the four neighbours are
+// gathered.
+static inline __attribute__((target("avx2,fma"), always_inline)) __m256
+warped_sample(const float *base, int w, __m256i vw, __m256 a0, __m256 a3, __m256 fx0, __m256 fy0, __m256 li) {
+    const __m256 X = _mm256_fmadd_ps(a0, li, fx0);
+    const __m256 Y = _mm256_fmadd_ps(a3, li, fy0);
+    const __m256 Xf = _mm256_floor_ps(X), Yf = _mm256_floor_ps(Y);
+    const __m256 fx = _mm256_sub_ps(X, Xf), fy = _mm256_sub_ps(Y, Yf);
+    const __m256i off = _mm256_add_epi32(_mm256_mullo_epi32(_mm256_cvtps_epi32(Yf), vw), _mm256_cvtps_epi32(Xf));
+    const __m256 q00 = _mm256_i32gather_ps(base, off, 4);
+    const __m256 q01 = _mm256_i32gather_ps(base + 1, off, 4);
+    const __m256 q10 = _mm256_i32gather_ps(base + w, off, 4);
+    const __m256 q11 = _mm256_i32gather_ps(base + w + 1, off, 4);
+    const __m256 top = _mm256_fmadd_ps(fx, _mm256_sub_ps(q01, q00), q00);
+    const __m256 bot = _mm256_fmadd_ps(fx, _mm256_sub_ps(q11, q10), q10);
+    return _mm256_fmadd_ps(fy, _mm256_sub_ps(bot, top), top);
+}
+
 // Eight patch pixels of a row at a time: sample positions from the row's
 // start (kept relative to its integer base so float precision is ample),
 // four gathers for the bilinear neighbours, fused multiply–adds into
@@ -123,18 +143,7 @@ extern "C" __attribute__((target("avx2,fma"))) void tf_patch_sums(const float *p
         for (int i = 0; i < stride; i += 8) {
             const int k = j * stride + i;
             const __m256 li = _mm256_add_ps(lane, _mm256_set1_ps((float)i));
-            const __m256 X = _mm256_fmadd_ps(a0, li, fx0);
-            const __m256 Y = _mm256_fmadd_ps(a3, li, fy0);
-            const __m256 Xf = _mm256_floor_ps(X), Yf = _mm256_floor_ps(Y);
-            const __m256 fx = _mm256_sub_ps(X, Xf), fy = _mm256_sub_ps(Y, Yf);
-            const __m256i off = _mm256_add_epi32(_mm256_mullo_epi32(_mm256_cvtps_epi32(Yf), vw), _mm256_cvtps_epi32(Xf));
-            const __m256 q00 = _mm256_i32gather_ps(base, off, 4);
-            const __m256 q01 = _mm256_i32gather_ps(base + 1, off, 4);
-            const __m256 q10 = _mm256_i32gather_ps(base + w, off, 4);
-            const __m256 q11 = _mm256_i32gather_ps(base + w + 1, off, 4);
-            const __m256 top = _mm256_fmadd_ps(fx, _mm256_sub_ps(q01, q00), q00);
-            const __m256 bot = _mm256_fmadd_ps(fx, _mm256_sub_ps(q11, q10), q10);
-            __m256 val = _mm256_fmadd_ps(fy, _mm256_sub_ps(bot, top), top);
+            __m256 val = warped_sample(base, w, vw, a0, a3, fx0, fy0, li);
             const __m256 tk = _mm256_loadu_ps(t + k);
             const __m256 e = _mm256_sub_ps(val, tk);
             b0 = _mm256_fmadd_ps(_mm256_loadu_ps(sd + k), e, b0);
@@ -186,18 +195,7 @@ extern "C" __attribute__((target("avx2,fma"))) void tf_occlusion_votes(const flo
         for (int i = 0; i < stride; i += 8) {
             const int k = j * stride + i;
             const __m256 li = _mm256_add_ps(lane, _mm256_set1_ps((float)i));
-            const __m256 X = _mm256_fmadd_ps(a0, li, fx0);
-            const __m256 Y = _mm256_fmadd_ps(a3, li, fy0);
-            const __m256 Xf = _mm256_floor_ps(X), Yf = _mm256_floor_ps(Y);
-            const __m256 fx = _mm256_sub_ps(X, Xf), fy = _mm256_sub_ps(Y, Yf);
-            const __m256i off = _mm256_add_epi32(_mm256_mullo_epi32(_mm256_cvtps_epi32(Yf), vw), _mm256_cvtps_epi32(Xf));
-            const __m256 q00 = _mm256_i32gather_ps(base, off, 4);
-            const __m256 q01 = _mm256_i32gather_ps(base + 1, off, 4);
-            const __m256 q10 = _mm256_i32gather_ps(base + w, off, 4);
-            const __m256 q11 = _mm256_i32gather_ps(base + w + 1, off, 4);
-            const __m256 top = _mm256_fmadd_ps(fx, _mm256_sub_ps(q01, q00), q00);
-            const __m256 bot = _mm256_fmadd_ps(fx, _mm256_sub_ps(q11, q10), q10);
-            __m256 val = _mm256_fmadd_ps(fy, _mm256_sub_ps(bot, top), top);
+            __m256 val = warped_sample(base, w, vw, a0, a3, fx0, fy0, li);
             val = _mm256_and_ps(val, _mm256_cmp_ps(li, vn, _CMP_LT_OQ));
             _mm256_storeu_ps(iw + k, val);
             si = _mm256_add_ps(si, val);
