@@ -105,6 +105,19 @@ func BenchmarkIncomplete300x10000(b *testing.B) {
 // adds 1000 and 3000 frames (the dense step only up to 1000: at 3000 its
 // system alone is 4.6 GB per copy).
 func BenchmarkIncompleteLong(b *testing.B) {
+	longCases(b, func(b *testing.B, solver string, m *Measurements) {
+		above := -1
+		if solver == "pcg" {
+			above = 1
+		}
+		benchLong(b, m, MissingOptions{Loss: LossSquared, MaxRuns: 1, Threads: 2, IterativeAbove: above})
+	})
+}
+
+// longCases runs body for each long sequence and camera-step solver
+// ("dense", "pcg"), skipping the large ones unless TF_BENCH_LARGE=1 and
+// the dense step where its system would not fit.
+func longCases(b *testing.B, body func(b *testing.B, solver string, m *Measurements)) {
 	for _, c := range []struct {
 		nf, np int
 		step   float64
@@ -119,11 +132,7 @@ func BenchmarkIncompleteLong(b *testing.B) {
 					b.Skip("the dense camera system of 3000 frames needs 4.6 GB per copy")
 				}
 				m := incTracked(rand.New(rand.NewPCG(uint64(c.nf), 4)), c.nf, c.np, c.step, 0.3, 10, 30, 0.5).measurements()
-				above := -1
-				if solver == "pcg" {
-					above = 1
-				}
-				benchLong(b, m, MissingOptions{Loss: LossSquared, MaxRuns: 1, Threads: 2, IterativeAbove: above})
+				body(b, solver, m)
 			})
 		}
 	}
@@ -159,63 +168,48 @@ func benchLong(b *testing.B, m *Measurements, mo MissingOptions) {
 // without the iteration count. 300 frames by default, 1000 and 3000 with
 // TF_BENCH_LARGE=1 (dense up to 1000).
 func BenchmarkIncompleteStep(b *testing.B) {
-	for _, c := range []struct {
-		nf, np int
-		step   float64
-		large  bool
-	}{{300, 2000, 1.2, false}, {1000, 6000, 1, true}, {3000, 18000, 1, true}} {
-		for _, solver := range []string{"dense", "pcg"} {
-			b.Run(fmt.Sprintf("%dx%d/%s", c.nf, c.np, solver), func(b *testing.B) {
-				if c.large && os.Getenv("TF_BENCH_LARGE") != "1" {
-					b.Skip("set TF_BENCH_LARGE=1 to run the long sequences")
-				}
-				if solver == "dense" && c.nf > 1000 {
-					b.Skip("the dense camera system of 3000 frames needs 4.6 GB per copy")
-				}
-				m := incTracked(rand.New(rand.NewPCG(uint64(c.nf), 4)), c.nf, c.np, c.step, 0.3, 10, 30, 0.5).measurements()
-				pr := newIncProblem(m, nil, nil, nil)
-				ini, err := incPropagate(pr)
-				if err != nil {
-					b.Fatal(err)
-				}
-				d := incDim(3)
-				u := ini.u
-				incRetract(u, pr.nf, d, pr.gaugeC())
-				X := make([]float64, 3*pr.np)
-				delta := make([]float64, d.fs*pr.nf)
-				if solver == "dense" {
-					w := newIncVPWork(pr, d, 2)
-					n := w.n
-					b.ResetTimer()
-					for i := 0; i < b.N; i++ {
-						w.build(pr, u, X)
-						lambda := 1e-2 * w.hs[0][0]
-						for r := 0; r < n; r++ {
-							copy(w.A[r*n+r:(r+1)*n], w.hs[0][r*n+r:(r+1)*n])
-							w.A[r*n+r] += lambda
-						}
-						copy(delta, w.gs[0])
-						if !incCholSolve(w.A, n, delta) {
-							b.Fatal("Cholesky failed")
-						}
-					}
-					return
-				}
-				w := newIncCGWork(pr, d, 2)
-				b.ResetTimer()
-				iters := 0
-				for i := 0; i < b.N; i++ {
-					w.build(pr, u, X)
-					incProjectGauge(u, w.gs[0], pr.nf, d, pr.gaugeC())
-					w.g0 = -1
-					if !w.solve(pr, u, X, 1e-2*w.maxDiag(), delta) {
-						b.Fatal("PCG broke down")
-					}
-					iters += w.iters
-				}
-				b.ReportMetric(float64(iters)/float64(b.N), "cg-iters")
-				b.ReportMetric(float64(len(pr.wt)), "observations")
-			})
+	longCases(b, func(b *testing.B, solver string, m *Measurements) {
+		pr := newIncProblem(m, nil, nil, nil)
+		ini, err := incPropagate(pr)
+		if err != nil {
+			b.Fatal(err)
 		}
-	}
+		d := incDim(3)
+		u := ini.u
+		incRetract(u, pr.nf, d, pr.gaugeC())
+		X := make([]float64, 3*pr.np)
+		delta := make([]float64, d.fs*pr.nf)
+		if solver == "dense" {
+			w := newIncVPWork(pr, d, 2)
+			n := w.n
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				w.build(pr, u, X)
+				lambda := 1e-2 * w.hs[0][0]
+				for r := 0; r < n; r++ {
+					copy(w.A[r*n+r:(r+1)*n], w.hs[0][r*n+r:(r+1)*n])
+					w.A[r*n+r] += lambda
+				}
+				copy(delta, w.gs[0])
+				if !incCholSolve(w.A, n, delta) {
+					b.Fatal("Cholesky failed")
+				}
+			}
+			return
+		}
+		w := newIncCGWork(pr, d, 2)
+		b.ResetTimer()
+		iters := 0
+		for i := 0; i < b.N; i++ {
+			w.build(pr, u, X)
+			incProjectGauge(u, w.gs[0], pr.nf, d, pr.gaugeC())
+			w.g0 = -1
+			if !w.solve(pr, u, X, 1e-2*w.maxDiag(), delta) {
+				b.Fatal("PCG broke down")
+			}
+			iters += w.iters
+		}
+		b.ReportMetric(float64(iters)/float64(b.N), "cg-iters")
+		b.ReportMetric(float64(len(pr.wt)), "observations")
+	})
 }

@@ -168,6 +168,41 @@ func BenchmarkUncertainty72x2000(b *testing.B) {
 // factorisation). Reported: ms per iteration and to convergence, the
 // iterations and the CG iterations per step.
 func BenchmarkAdjustLong(b *testing.B) {
+	longCases(b, func(b *testing.B, solver string, m *factor.Measurements, start *factor.Reconstruction) {
+		above := -1
+		if solver == "pcg" {
+			above = 1
+		}
+		opts := Options{SkipUncertainty: true, IterativeAbove: above, Threads: 2}
+		b.ResetTimer()
+		var iters, cg int
+		var total time.Duration
+		for i := 0; i < b.N; i++ {
+			t0 := time.Now()
+			res, err := Adjust(context.Background(), m, start, opts)
+			if err != nil {
+				b.Fatal(err)
+			}
+			total += time.Since(t0)
+			iters += res.Summary.Iterations
+			cg += res.Summary.CGIterations
+			if i == b.N-1 {
+				b.Logf("%s", res.Summary.Brief())
+			}
+		}
+		b.ReportMetric(float64(total.Milliseconds())/float64(iters), "ms/iter")
+		b.ReportMetric(float64(total.Milliseconds())/float64(b.N), "ms/converged")
+		b.ReportMetric(float64(iters)/float64(b.N), "iters")
+		if cg > 0 {
+			b.ReportMetric(float64(cg)/float64(iters), "cg/iter")
+		}
+	})
+}
+
+// longCases runs body for each long sequence and reduced-system solver
+// ("dense", "pcg"), skipping the large ones unless enabled and the dense
+// solver where its system would not fit.
+func longCases(b *testing.B, body func(b *testing.B, solver string, m *factor.Measurements, start *factor.Reconstruction)) {
 	for _, c := range []struct {
 		nf, np, arc int
 		large       bool
@@ -180,34 +215,8 @@ func BenchmarkAdjustLong(b *testing.B) {
 				if solver == "dense" && c.nf > 1000 {
 					b.Skip("the dense reduced system of 3000 cameras needs 2.6 GB per copy")
 				}
-				above := -1
-				if solver == "pcg" {
-					above = 1
-				}
 				m, start := benchScene(c.nf, c.np, float64(c.arc)/float64(c.nf))
-				opts := Options{SkipUncertainty: true, IterativeAbove: above, Threads: 2}
-				b.ResetTimer()
-				var iters, cg int
-				var total time.Duration
-				for i := 0; i < b.N; i++ {
-					t0 := time.Now()
-					res, err := Adjust(context.Background(), m, start, opts)
-					if err != nil {
-						b.Fatal(err)
-					}
-					total += time.Since(t0)
-					iters += res.Summary.Iterations
-					cg += res.Summary.CGIterations
-					if i == b.N-1 {
-						b.Logf("%s", res.Summary.Brief())
-					}
-				}
-				b.ReportMetric(float64(total.Milliseconds())/float64(iters), "ms/iter")
-				b.ReportMetric(float64(total.Milliseconds())/float64(b.N), "ms/converged")
-				b.ReportMetric(float64(iters)/float64(b.N), "iters")
-				if cg > 0 {
-					b.ReportMetric(float64(cg)/float64(iters), "cg/iter")
-				}
+				body(b, solver, m, start)
 			})
 		}
 	}
@@ -217,53 +226,39 @@ func BenchmarkAdjustLong(b *testing.B) {
 // the long sequences of BenchmarkAdjustLong (dense: form S and factor
 // it; pcg: the point blocks and the truncated PCG solve).
 func BenchmarkStepLong(b *testing.B) {
-	for _, c := range []struct {
-		nf, np, arc int
-		large       bool
-	}{{300, 2000, 90, false}, {1000, 6000, 40, true}, {3000, 18000, 40, true}} {
-		for _, solver := range []string{"dense", "pcg"} {
-			b.Run(fmt.Sprintf("%dx%d/%s", c.nf, c.np, solver), func(b *testing.B) {
-				if c.large {
-					largeEnabled(b)
-				}
-				if solver == "dense" && c.nf > 1000 {
-					b.Skip("the dense reduced system of 3000 cameras needs 2.6 GB per copy")
-				}
-				m, start := benchScene(c.nf, c.np, float64(c.arc)/float64(c.nf))
-				opts := Options{Threads: 2}.WithDefaults()
-				pr, err := prepareFree(m, start, opts)
-				if err != nil {
-					b.Fatal(err)
-				}
-				p := pr.st.prob
-				p.makeChunks(opts.Threads)
-				lin := newLinearizer(p, pr.mod)
-				var sys system
-				var cs cgSystem
-				cg := 0
-				b.ResetTimer()
-				for i := 0; i < b.N; i++ {
-					var dc []float64
-					var ok bool
-					if solver == "dense" {
-						lin.linearize(pr.mod, pr.X, 1e-4, &sys)
-						dc, ok = solveCameras(&sys)
-					} else {
-						cs.g0 = -1
-						lin.linearizeCG(pr.mod, pr.X, 1e-4, &sys, &cs)
-						dc, ok = lin.solveCamerasCG(&sys, &cs)
-						cg += cs.iters
-					}
-					if !ok {
-						b.Fatal("step failed")
-					}
-					lin.backSubstitute(pr.mod, pr.X, &sys, dc)
-				}
-				if cg > 0 {
-					b.ReportMetric(float64(cg)/float64(b.N), "cg-iters")
-				}
-				b.ReportMetric(float64(p.nobs()), "observations")
-			})
+	longCases(b, func(b *testing.B, solver string, m *factor.Measurements, start *factor.Reconstruction) {
+		opts := Options{Threads: 2}.WithDefaults()
+		pr, err := prepareFree(m, start, opts)
+		if err != nil {
+			b.Fatal(err)
 		}
-	}
+		p := pr.st.prob
+		p.makeChunks(opts.Threads)
+		lin := newLinearizer(p, pr.mod)
+		var sys system
+		var cs cgSystem
+		cg := 0
+		b.ResetTimer()
+		for i := 0; i < b.N; i++ {
+			var dc []float64
+			var ok bool
+			if solver == "dense" {
+				lin.linearize(pr.mod, pr.X, 1e-4, &sys)
+				dc, ok = solveCameras(&sys)
+			} else {
+				cs.g0 = -1
+				lin.linearizeCG(pr.mod, pr.X, 1e-4, &sys, &cs)
+				dc, ok = lin.solveCamerasCG(&sys, &cs)
+				cg += cs.iters
+			}
+			if !ok {
+				b.Fatal("step failed")
+			}
+			lin.backSubstitute(pr.mod, pr.X, &sys, dc)
+		}
+		if cg > 0 {
+			b.ReportMetric(float64(cg)/float64(b.N), "cg-iters")
+		}
+		b.ReportMetric(float64(p.nobs()), "observations")
+	})
 }
