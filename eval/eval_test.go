@@ -130,3 +130,29 @@ func TestCompareAngles(t *testing.T) {
 		t.Error("one angle accepted")
 	}
 }
+
+// SigmaRatio follows its definition: with errors exactly √3·scale·σ for
+// every point the ratios are 1; doubling one of three errors gives the
+// median 1 and the RMS ratio √((4+1+1)/3) (σ equal), computed by hand.
+// Points without a σ, without an error, or with σ = 0 are left out.
+func TestSigmaRatio(t *testing.T) {
+	sigma := map[int]float64{1: 0.1, 2: 0.1, 3: 0.1, 4: 0.2, 5: 0}
+	errs := map[int]float64{}
+	for id, s := range sigma {
+		errs[id] = math.Sqrt(3) * 2 * s
+	}
+	errs[6] = 1
+	delete(errs, 4)
+	med, rms, n := SigmaRatio(errs, sigma, 2)
+	if n != 3 || math.Abs(med-1) > 1e-12 || math.Abs(rms-1) > 1e-12 {
+		t.Errorf("exact errors: median %v, RMS %v over %d points; want 1, 1 over 3", med, rms, n)
+	}
+	errs[2] *= 2
+	med, rms, _ = SigmaRatio(errs, sigma, 2)
+	if math.Abs(med-1) > 1e-12 || math.Abs(rms-math.Sqrt(2)) > 1e-12 {
+		t.Errorf("one error doubled: median %v, RMS %v; want 1, √2", med, rms)
+	}
+	if _, _, n := SigmaRatio(errs, nil, 1); n != 0 {
+		t.Errorf("no σ: %d points", n)
+	}
+}

@@ -3,6 +3,7 @@ package eval
 import (
 	"fmt"
 	"math"
+	"slices"
 
 	"trackfactor/factor"
 )
@@ -141,4 +142,35 @@ func CompareAngles(estDeg []float64, frames []int, trueDeg func(f int) float64) 
 		return b, nil
 	}
 	return a, nil
+}
+
+// SigmaRatio compares the points' actual errors errs (truth units, after
+// the similarity alignment, by track) with their predicted standard
+// deviations sigma (each the RMS over the three axes, in reconstruction
+// units, by track; scale converts them to truth units, so the expected
+// squared error is 3·(scale·σ)²): it returns the median over points of
+// error / (√3·scale·σ) and the ratio of the RMS error to √3·scale·RMS σ,
+// over the n points that have both and σ > 0. 1 means σ accounts for the
+// whole error.
+func SigmaRatio(errs, sigma map[int]float64, scale float64) (med, rms float64, n int) {
+	ids := make([]int, 0, len(sigma))
+	for id, s := range sigma {
+		if _, ok := errs[id]; ok && s > 0 {
+			ids = append(ids, id)
+		}
+	}
+	if len(ids) == 0 {
+		return 0, 0, 0
+	}
+	slices.Sort(ids)
+	var se, ss float64
+	rs := make([]float64, len(ids))
+	for i, id := range ids {
+		e, s := errs[id], math.Sqrt(3)*sigma[id]*scale
+		se += e * e
+		ss += s * s
+		rs[i] = e / s
+	}
+	slices.Sort(rs)
+	return median(rs), math.Sqrt(se / ss), len(ids)
 }

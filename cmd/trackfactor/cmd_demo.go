@@ -2,11 +2,8 @@ package main
 
 import (
 	"fmt"
-	"math"
 	"os"
 	"path/filepath"
-	"slices"
-	"trackfactor/export"
 
 	"github.com/urfave/cli/v2"
 
@@ -113,7 +110,13 @@ func demoCommand() *cli.Command {
 				if u := res.Doc.Units; u == "mm" {
 					fmt.Fprintf(w, "  scale     1 mm of the result is %.5f mm of the part (%+.3f %%)\n", rep.Scale, 100*(rep.Scale-1))
 				}
-				if med, rms, n := sigmaRatio(res.Doc, rep.PointError, rep.Scale); n > 0 {
+				sigma := map[int]float64{}
+				for _, p := range res.Doc.Points {
+					if p.Sigma != nil {
+						sigma[p.Track] = *p.Sigma
+					}
+				}
+				if med, rms, n := eval.SigmaRatio(rep.PointError, sigma, rep.Scale); n > 0 {
 					fmt.Fprintf(w, "  sigma     actual point errors are %.1f× the predicted σ (median over %d points; RMS %.1f×); 1 would mean σ tells the whole error — see README, Limits\n", med, n, rms)
 				}
 				if r := res.Refinement; r != nil && r.Turntable != nil {
@@ -137,34 +140,4 @@ func firstSeen(set *track.Set) map[int]eval.Seen {
 		}
 	}
 	return m
-}
-
-// sigmaRatio compares the points' actual errors (truth units, after the
-// similarity alignment) with their predicted standard deviations σ (each
-// the RMS over the three axes, in result units, so the expected squared
-// error is 3σ² and scale converts them to truth units): the median over
-// points of error / (√3·σ) and the ratio of RMS error to √3·RMS σ, over
-// the n points that have both.
-func sigmaRatio(doc *export.Document, errs map[int]float64, scale float64) (median, rms float64, n int) {
-	var se, ss float64
-	var rs []float64
-	for _, p := range doc.Points {
-		e, ok := errs[p.Track]
-		if !ok || p.Sigma == nil || !(*p.Sigma > 0) {
-			continue
-		}
-		s := math.Sqrt(3) * *p.Sigma * scale
-		se += e * e
-		ss += s * s
-		rs = append(rs, e/s)
-	}
-	if len(rs) == 0 {
-		return 0, 0, 0
-	}
-	slices.Sort(rs)
-	median = rs[len(rs)/2]
-	if len(rs)%2 == 0 {
-		median = (rs[len(rs)/2-1] + rs[len(rs)/2]) / 2
-	}
-	return median, math.Sqrt(se / ss), len(rs)
 }
